@@ -1,0 +1,231 @@
+"""Inverter: one gate of an unbuffered CMOS hex inverter package used as an analog part.
+
+Two forms share one set of terminals (``in``, ``out``; the rails vdd/gnd implicitly):
+
+``transistor`` (default)
+    A complementary pair of square-law MOS channels with channel-length modulation
+    (see :func:`blocks._junction.channel`). This one equation gives, without extra
+    parameters: finite small-signal gain A = (gm_n + gm_p) / (gds_n + gds_p), smooth
+    saturation at the rails, an output resistance (the channel in triode), an output
+    current limit (the channel in saturation), a switching threshold that moves with
+    the supply, and the class-A current drawn from the supply when biased mid-rail.
+``behavioural``
+    Gain, threshold fraction, output resistance, current limit and idle current given
+    directly: v_target = VSS + S/2 (1 - tanh(2 A (v_in - v_th) / S)), S = VDD - VSS,
+    output current I_max tanh((v_target - v_out) / (R_out I_max)). Chosen automatically
+    when a patch or model sets ``gain``.
+
+Both forms add the input capacitance (input to gnd) and the input protection diodes
+(input to vdd, gnd to input).
+
+Defaults of the transistor form are fitted to the published B-series figures:
+JEDEC JESD13-B minimum output drive (sink) of 0.51 mA at VDD = 5 V, VOL = 0.4 V;
+1.3 mA at 10 V, 0.5 V; 3.4 mA at 15 V, 1.5 V, and the typical figures printed in
+unbuffered B-series hex inverter datasheets (about 0.88, 2.25 and 8.8 mA at the same
+points, from memory). With kn = kp = 0.55 mA/V^2 and thresholds 1.3 / 1.5 V the
+model gives about 0.78, 2.4 and 11.5 mA there (tests/test_blocks.py checks this).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+
+from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column
+from blocks._junction import channel, junction
+
+FORMS = ("transistor", "behavioural")
+
+#: Smoothing current (A) of the split of a behavioural output current between the
+#: rails: below about this current the split is gradual (keeps Newton smooth).
+SPLIT_SMOOTHING_AMPS = 1e-6
+
+PARAMS = (
+    Param("form", "", "transistor", "common practice: transistor-level unless asked",
+          "equation set", choices=FORMS),
+    Param("kn", "A/V^2", 0.55e-3,
+          "fitted to JESD13-B minimum / datasheet typical sink current (module docstring)",
+          "n-channel transconductance factor", positive=True, tolerance_pct=20.0),
+    Param("kp", "A/V^2", 0.55e-3,
+          "fitted to JESD13-B minimum / datasheet typical source current (datasheets give "
+          "equal typical sink and source figures, from memory)",
+          "p-channel transconductance factor", positive=True, tolerance_pct=20.0),
+    Param("vtn", "V", 1.3, "from memory: B-series threshold voltages of 1 to 2 V",
+          "n-channel threshold", positive=True, maximum=5.0, tolerance_pct=10.0),
+    Param("vtp", "V", 1.5, "from memory: B-series threshold voltages of 1 to 2 V",
+          "p-channel threshold magnitude", positive=True, maximum=5.0, tolerance_pct=10.0),
+    Param("clm", "1/V", 0.05,
+          "chosen so the mid-rail gain is about 35 at 5 V and 16 at 9 V; from memory "
+          "unbuffered gates give a few tens at 5 V, falling with supply",
+          "channel-length modulation", minimum=0.0, maximum=1.0),
+    Param("slope", "", 1.5, "from memory: MOS subthreshold slope factor 1.3 to 1.7",
+          "subthreshold slope factor", positive=True),
+    Param("in_farads", "F", 5e-12,
+          "from memory: B-series datasheets give 5 pF typical input capacitance, 7.5 pF max",
+          "input capacitance", minimum=0.0),
+    Param("clamp_amps", "A", 1e-14,
+          "from memory: small-junction saturation current; clamps conduct ~0.6 V beyond a rail",
+          "input protection diode saturation current", positive=True),
+    Param("gain", "", 20.0,
+          "from memory: unbuffered gates give a gain of a few tens at 5 to 10 V",
+          "behavioural: small-signal gain at threshold", positive=True, tolerance_pct=20.0),
+    Param("threshold", "", 0.5, "common practice: a CMOS inverter switches near half supply",
+          "behavioural: switching threshold as a fraction of the supply",
+          positive=True, maximum=1.0, tolerance_pct=4.0),
+    Param("out_ohms", "ohm", 500.0,
+          "from memory: unbuffered gate output resistance of a few hundred ohms at 5 to 10 V",
+          "behavioural: output resistance", positive=True),
+    Param("max_amps", "A", 10e-3,
+          "from memory: B-series outputs deliver roughly 5 to 20 mA into a short at 9 V",
+          "behavioural: output current limit", positive=True),
+    Param("idle_amps", "A", 2e-3,
+          "from memory: a few mA of class-A current per gate biased mid-rail at 9 V",
+          "behavioural: supply current at threshold", minimum=0.0),
+)
+
+C_FORM = column(PARAMS, "form")
+C_KN, C_KP = column(PARAMS, "kn"), column(PARAMS, "kp")
+C_VTN, C_VTP = column(PARAMS, "vtn"), column(PARAMS, "vtp")
+C_CLM, C_SLOPE = column(PARAMS, "clm"), column(PARAMS, "slope")
+C_CLAMP = column(PARAMS, "clamp_amps")
+C_GAIN, C_THR = column(PARAMS, "gain"), column(PARAMS, "threshold")
+C_ROUT, C_IMAX, C_IDLE = column(PARAMS, "out_ohms"), column(PARAMS, "max_amps"), column(PARAMS, "idle_amps")
+
+# Local unknowns: in, out, vdd, gnd.
+L_IN, L_OUT, L_VDD, L_GND = 0, 1, 2, 3
+
+
+@numba.njit
+def _stamp_transistor(x, P, k, nd, f, G):
+    vin, vout, vdd, vss = x[nd[0]], x[nd[1]], x[nd[2]], x[nd[3]]
+    two_phi = 2.0 * P[k, C_SLOPE] * THERMAL_VOLTS
+    clm = P[k, C_CLM]
+    # n channel: drain out, source gnd, gate in. Current out -> gnd.
+    i_n, gm_n, gds_n = channel(vin - vss, vout - vss, P[k, C_KN], P[k, C_VTN], clm, two_phi)
+    # p channel: source vdd, drain out, gate in. Current vdd -> out.
+    i_p, gm_p, gds_p = channel(vdd - vin, vdd - vout, P[k, C_KP], P[k, C_VTP], clm, two_phi)
+    f[nd[1]] += i_n - i_p
+    f[nd[3]] -= i_n
+    f[nd[2]] += i_p
+    # d/d(in, out, vdd, gnd)
+    dn0, dn1, dn2, dn3 = gm_n, gds_n, 0.0, -(gm_n + gds_n)
+    dp0, dp1, dp2, dp3 = -gm_p, -gds_p, gm_p + gds_p, 0.0
+    o, g_, s = nd[1], nd[3], nd[2]
+    G[o, nd[0]] += dn0 - dp0
+    G[o, nd[1]] += dn1 - dp1
+    G[o, nd[2]] += dn2 - dp2
+    G[o, nd[3]] += dn3 - dp3
+    G[g_, nd[0]] -= dn0
+    G[g_, nd[1]] -= dn1
+    G[g_, nd[3]] -= dn3
+    G[s, nd[0]] += dp0
+    G[s, nd[1]] += dp1
+    G[s, nd[2]] += dp2
+
+
+@numba.njit
+def _stamp_behavioural(x, P, k, nd, f, G):
+    vin, vout, vdd, vss = x[nd[0]], x[nd[1]], x[nd[2]], x[nd[3]]
+    span = vdd - vss
+    if span < 1e-3:  # rails collapsed (before power-on): keep the algebra finite
+        span = 1e-3
+    a = P[k, C_GAIN]
+    thr = P[k, C_THR]
+    rel = (vin - vss) / span
+    z = 2.0 * a * (rel - thr)
+    dz_in = 2.0 * a / span
+    dz_vdd = -2.0 * a * (vin - vss) / (span * span)
+    dz_gnd = 2.0 * a * (-span + (vin - vss)) / (span * span)
+    th = math.tanh(z)
+    sech2 = 1.0 - th * th
+    v_t = vss + 0.5 * span * (1.0 - th)
+    dvt_in = -0.5 * span * sech2 * dz_in
+    dvt_vdd = 0.5 * (1.0 - th) - 0.5 * span * sech2 * dz_vdd
+    dvt_gnd = 1.0 - 0.5 * (1.0 - th) - 0.5 * span * sech2 * dz_gnd
+    imax = P[k, C_IMAX]
+    rout = P[k, C_ROUT]
+    u = (v_t - vout) / (rout * imax)
+    tu = math.tanh(u)
+    i = imax * tu  # into the out node
+    di = (1.0 - tu * tu) / rout  # d i / d (v_t - v_out)
+    d_i = (di * dvt_in, -di, di * dvt_vdd, di * dvt_gnd)
+    root = math.sqrt(i * i + SPLIT_SMOOTHING_AMPS * SPLIT_SMOOTHING_AMPS)
+    i_src = 0.5 * (i + root)  # drawn from vdd
+    ds = 0.5 * (1.0 + i / root)
+    idle = P[k, C_IDLE]
+    iq = idle * sech2
+    diq = -2.0 * idle * th * sech2
+    d_iq = (diq * dz_in, 0.0, diq * dz_vdd, diq * dz_gnd)
+    f[nd[1]] -= i
+    f[nd[2]] += i_src + iq
+    f[nd[3]] -= i_src - i + iq
+    for c in range(4):
+        col = nd[c]
+        G[nd[1], col] -= d_i[c]
+        G[nd[2], col] += ds * d_i[c] + d_iq[c]
+        G[nd[3], col] -= ds * d_i[c] - d_i[c] + d_iq[c]
+
+
+@numba.njit
+def _stamp_clamps(x, P, k, nd, f, G):
+    n_vt = THERMAL_VOLTS
+    isat = P[k, C_CLAMP]
+    i_in, vdd, gnd = nd[0], nd[2], nd[3]
+    # input -> vdd
+    i, g = junction(x[i_in] - x[vdd], isat, n_vt)
+    f[i_in] += i
+    f[vdd] -= i
+    G[i_in, i_in] += g
+    G[i_in, vdd] -= g
+    G[vdd, i_in] -= g
+    G[vdd, vdd] += g
+    # gnd -> input
+    i, g = junction(x[gnd] - x[i_in], isat, n_vt)
+    f[gnd] += i
+    f[i_in] -= i
+    G[gnd, gnd] += g
+    G[gnd, i_in] -= g
+    G[i_in, gnd] -= g
+    G[i_in, i_in] += g
+
+
+@numba.njit
+def stamp(x, t, P, N, D, f, G):
+    for k in range(P.shape[0]):
+        nd = N[k]
+        if P[k, C_FORM] == 0.0:
+            _stamp_transistor(x, P, k, nd, f, G)
+        else:
+            _stamp_behavioural(x, P, k, nd, f, G)
+        _stamp_clamps(x, P, k, nd, f, G)
+
+
+def mass(values):
+    return capacitance_entries(L_IN, L_GND, values["in_farads"])
+
+
+BEHAVIOURAL_ONLY = ("gain", "threshold", "out_ohms", "max_amps", "idle_amps")
+
+
+def resolve(values, given):
+    """Pick the behavioural form when a behavioural-only parameter is set and the form is not."""
+    if "form" not in given and any(name in given for name in BEHAVIOURAL_ONLY):
+        return {**values, "form": "behavioural"}
+    return values
+
+
+KIND = Kind(
+    name="inverter",
+    description="One gate of an unbuffered CMOS hex inverter (input, output; rails implicit).",
+    terminals=(("in", 1), ("out", 1)),
+    rails=True,
+    params=PARAMS,
+    stamp=stamp,
+    mass=mass,
+    resolve=resolve,
+    models={
+        "typical": {},
+        "behavioural": {"form": "behavioural"},
+    },
+)

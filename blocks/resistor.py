@@ -1,0 +1,34 @@
+"""Resistor: a linear conductance between two nets."""
+
+from __future__ import annotations
+
+import numba
+
+from blocks._base import Kind, Param
+
+
+@numba.njit
+def stamp(x, t, P, N, D, f, G):
+    for k in range(P.shape[0]):
+        a, b = N[k, 0], N[k, 1]
+        g = 1.0 / P[k, 0]
+        i = g * (x[a] - x[b])
+        f[a] += i
+        f[b] -= i
+        G[a, a] += g
+        G[a, b] -= g
+        G[b, a] -= g
+        G[b, b] += g
+
+
+KIND = Kind(
+    name="resistor",
+    description="A fixed resistor between two nets.",
+    terminals=(("between", 2),),
+    params=(
+        Param("value", "ohm", None, "given by the patch", "resistance", positive=True,
+              tolerance_pct=5.0),
+    ),
+    stamp=stamp,
+    main_param="value",
+)

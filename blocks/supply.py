@@ -1,0 +1,77 @@
+"""Supply: a battery (EMF behind an internal resistance) feeding the rails vdd and gnd.
+
+The patch declares it at top level (``supply: {volts: 9, source_ohms: 2}``), not under
+``parts``. At power-on its EMF rises from 0 to ``volts`` over ``ramp_seconds`` along a
+smooth step (continuous slope, so the integrator needs no restart at its ends).
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+from blocks._base import Kind, Param
+
+COL_VOLTS, COL_OHMS, COL_RAMP = 0, 1, 2
+
+
+@numba.njit
+def emf_volts(t, volts, ramp_seconds):
+    """Battery EMF at time ``t`` (s): a smooth step 3u^2 - 2u^3 over the power-on ramp."""
+    if ramp_seconds <= 0.0 or t >= ramp_seconds:
+        return volts
+    if t <= 0.0:
+        return 0.0
+    u = t / ramp_seconds
+    return volts * u * u * (3.0 - 2.0 * u)
+
+
+@numba.njit
+def stamp(x, t, P, N, D, f, G):
+    for k in range(P.shape[0]):
+        vdd, gnd = N[k, 0], N[k, 1]
+        g = 1.0 / P[k, COL_OHMS]
+        e = emf_volts(t, P[k, COL_VOLTS], P[k, COL_RAMP])
+        # Current delivered into vdd by the battery: (E - (v_vdd - v_gnd)) / R.
+        i = g * (e - (x[vdd] - x[gnd]))
+        f[vdd] -= i
+        f[gnd] += i
+        G[vdd, vdd] += g
+        G[vdd, gnd] -= g
+        G[gnd, vdd] -= g
+        G[gnd, gnd] += g
+
+
+@numba.njit
+def _emf_array(t_seconds, volts, ramp_seconds):
+    out = np.empty_like(t_seconds)
+    for i in range(t_seconds.shape[0]):
+        out[i] = emf_volts(t_seconds[i], volts, ramp_seconds)
+    return out
+
+
+def supply_amps(t_seconds, vdd_volts, values):
+    """Battery current (A), shape (m,), at times ``t_seconds`` (m,) given the vdd net's volts (m,)."""
+    t = np.ascontiguousarray(t_seconds, dtype=np.float64)
+    e = _emf_array(t, float(values["volts"]), float(values["ramp_seconds"]))
+    return (e - np.asarray(vdd_volts)) / float(values["source_ohms"])
+
+
+KIND = Kind(
+    name="supply",
+    description="The battery: EMF `volts` behind `source_ohms`, on the rails vdd and gnd.",
+    terminals=(),
+    rails=True,
+    params=(
+        Param("volts", "V", None, "given by the patch", "battery EMF", positive=True,
+              maximum=40.0),
+        Param("source_ohms", "ohm", 1.5,
+              "from memory: a fresh 9 V alkaline battery measures about 1 to 2 ohm inside",
+              "internal resistance", positive=True),
+        Param("ramp_seconds", "s", 1e-3,
+              "common practice: a switched battery rail settles within about a millisecond",
+              "power-on ramp time", minimum=0.0, maximum=1.0),
+    ),
+    stamp=stamp,
+    main_param="volts",
+)

@@ -1,0 +1,428 @@
+"""The compiled time stepper (source text compiled inside a generated kernel module).
+
+This file is not imported on its own: :mod:`sim.kernel` writes a module that defines
+``evaluate`` (the sum of every kind's stamp) and then this text, and numba compiles
+and caches that module. See DEVELOPERS.md, "The stepper".
+
+The system is ``M dx/dt + f(x, t) = 0`` with a constant mass matrix ``M`` (stray and
+part capacitances, inductances) and ``f``/``G = df/dx`` from ``evaluate``.
+
+Method
+------
+- BDF2 with variable steps (L-stable), backward Euler for (re)starts; Newton's method
+  with the analytic Jacobian and a dense LU with partial pivoting at every iteration.
+- Local error from the difference between the corrector and an extrapolating
+  predictor (Milne's device), weighted per unknown: "slow" unknowns (carrying a part's
+  capacitance or inductance) at the asked tolerance, "fast" ones (only stray
+  capacitance, i.e. algebraic in practice) at ``fast_factor`` times looser.
+- Events: a step whose Newton iteration fails, or whose solution jumps by more than
+  ``jump_volts`` from the predictor, contains a flip of a regenerative loop (a Schmitt
+  trigger switching). The step is bisected until the flip instant is bracketed to
+  ``event_seconds``; the part before it is accepted, then a recovery phase steps over
+  the flip's nanosecond transient with backward Euler steps that grow geometrically
+  back to the step size used before (L-stable, so the parasitic modes settle without
+  ringing and without spending steps resolving them).
+"""
+# The names below are resolved in the generated module that includes this text.
+# flake8: noqa: F821
+
+import numpy as np
+import numba
+
+# option vector ``opt``
+O_T_END = 0
+O_RTOL = 1
+O_HMAX = 2
+O_HMIN = 3
+O_EVENT_DT = 4
+O_JUMP_V = 5
+O_MAX_ITER = 6
+O_GROWTH = 7
+O_NEWTON_FRAC = 8
+O_DV_MAX = 9
+O_H_RESTART = 10
+O_SIZE = 11
+
+# state vector ``st``
+S_T = 0
+S_H = 1
+S_H1 = 2
+S_H2 = 3
+S_NHIST = 4
+S_MODE = 5
+S_HGOAL = 6
+S_FAIL_INDEX = 7
+S_HNORMAL = 8
+S_SIZE = 9
+
+# per-unknown table ``unk`` columns
+U_ATOL = 0
+U_WEIGHT = 1
+U_VOLT = 2
+
+# counters ``cnt``
+K_STEPS = 0
+K_REJECT_ERROR = 1
+K_REJECT_NEWTON = 2
+K_ITERATIONS = 3
+K_EVENTS = 4
+K_TRIALS = 5
+K_SIZE = 6
+
+MODE_NORMAL = 0
+MODE_RECOVER = 1
+
+# Newton outcomes
+N_OK = 0
+N_FAILED = 1
+N_JUMPED = 2  # an iterate left the predictor by more than the jump limit (not converged)
+N_JUMPED_CONVERGED = 3  # converged, but to a point that far from the predictor
+
+#: Step-size controller: never grow by more than this per step (keeps BDF2's
+#: variable-step formula well inside its zero-stability bound of 1 + sqrt(2)).
+MAX_GROWTH = 2.0
+#: ... and never shrink by more than this after a rejected step.
+MIN_SHRINK = 0.2
+#: Safety factor on the optimal step predicted from the error estimate.
+SAFETY = 0.9
+#: Shrink factor after Newton's method fails outside an event.
+NEWTON_SHRINK = 0.25
+
+
+@numba.njit(cache=True)
+def lu_solve(A, b, n):
+    """Solve A[1:n,1:n] y = b[1:n] in place (b becomes y); Gaussian elimination with
+    partial pivoting. Row/column 0 (ground) is ignored. Returns False if singular."""
+    for c in range(1, n):
+        p = c
+        best = abs(A[c, c])
+        for r in range(c + 1, n):
+            v = abs(A[r, c])
+            if v > best:
+                best = v
+                p = r
+        if best == 0.0:
+            return False
+        if p != c:
+            for j in range(1, n):
+                tmp = A[c, j]
+                A[c, j] = A[p, j]
+                A[p, j] = tmp
+            tmp = b[c]
+            b[c] = b[p]
+            b[p] = tmp
+        inv = 1.0 / A[c, c]
+        for r in range(c + 1, n):
+            m = A[r, c] * inv
+            if m != 0.0:
+                A[r, c] = 0.0
+                for j in range(c + 1, n):
+                    A[r, j] -= m * A[c, j]
+                b[r] -= m * b[c]
+    for r in range(n - 1, 0, -1):
+        s = b[r]
+        for j in range(r + 1, n):
+            s -= A[r, j] * b[j]
+        b[r] = s / A[r, r]
+    return True
+
+
+@numba.njit(cache=True)
+def apply_automation(pf, auto, t):
+    """Move automated parameters: rows (flat index, t0, t1, v0, v1), linear in time."""
+    for r in range(auto.shape[0]):
+        t0 = auto[r, 1]
+        t1 = auto[r, 2]
+        if t <= t0:
+            v = auto[r, 3]
+        elif t >= t1:
+            v = auto[r, 4]
+        else:
+            v = auto[r, 3] + (auto[r, 4] - auto[r, 3]) * (t - t0) / (t1 - t0)
+        pf[int(auto[r, 0])] = v
+
+
+@numba.njit(cache=True)
+def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jump_v, cnt):
+    """Solve M (a0 xn + c) + f(xn, t_new) = 0 for xn (in place, starting from xn).
+
+    Returns (outcome, worst unknown index). ``jump_v`` > 0 makes an iterate farther than
+    that from ``xref`` (volts) end the iteration as N_JUMPED.
+    """
+    n = xn.shape[0]
+    rtol = opt[O_RTOL] * opt[O_NEWTON_FRAC]
+    frac = opt[O_NEWTON_FRAC]
+    dv_max = opt[O_DV_MAX]
+    max_iter = int(opt[O_MAX_ITER])
+    worst = 1
+    for it in range(max_iter):
+        cnt[K_ITERATIONS] += 1
+        evaluate(xn, t_new, pf, nf, tab, df, f, G)
+        for i in range(1, n):
+            s = f[i]
+            for j in range(1, n):
+                mij = M[i, j]
+                if mij != 0.0:
+                    s += mij * (a0 * xn[j] + c[j])
+            r[i] = -s
+            for j in range(1, n):
+                J[i, j] = a0 * M[i, j] + G[i, j]
+        if not lu_solve(J, r, n):
+            return N_FAILED, worst
+        big = 0.0
+        for i in range(1, n):
+            if unk[i, U_VOLT] > 0.0:
+                a = abs(r[i])
+                if a > big:
+                    big = a
+        scale = 1.0
+        if big > dv_max:
+            scale = dv_max / big
+        conv = 0.0
+        dev = 0.0
+        for i in range(1, n):
+            d = scale * r[i]
+            xn[i] += d
+            e = abs(d) / (frac * unk[i, U_ATOL] + rtol * abs(xn[i]))
+            if e > conv:
+                conv = e
+                worst = i
+            if unk[i, U_VOLT] > 0.0:
+                dv = abs(xn[i] - xref[i])
+                if dv > dev:
+                    dev = dv
+        if not np.isfinite(conv):
+            return N_FAILED, worst
+        if jump_v > 0.0 and dev > jump_v:
+            return N_JUMPED, worst
+        if conv <= 1.0 and scale == 1.0:
+            return N_OK, worst
+    return N_FAILED, worst
+
+
+@numba.njit(cache=True)
+def _coefficients(order, h, h1, x, x1, c):
+    """Fill ``c`` and return a0 so that dx/dt at the new point is a0 xn + c."""
+    n = x.shape[0]
+    if order == 2:
+        w = h / h1
+        a0 = (1.0 + 2.0 * w) / ((1.0 + w) * h)
+        b1 = -(1.0 + w) / h
+        b2 = w * w / ((1.0 + w) * h)
+        for i in range(n):
+            c[i] = b1 * x[i] + b2 * x1[i]
+    else:
+        a0 = 1.0 / h
+        for i in range(n):
+            c[i] = -x[i] / h
+    return a0
+
+
+@numba.njit(cache=True)
+def _predict(nh, h, h1, x, x1, xp):
+    """Linear extrapolation (or a copy of x without history) into ``xp``."""
+    n = x.shape[0]
+    if nh >= 1:
+        s = h / h1
+        for i in range(n):
+            xp[i] = x[i] + s * (x[i] - x1[i])
+    else:
+        for i in range(n):
+            xp[i] = x[i]
+
+
+@numba.njit(cache=True)
+def _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df, unk, opt, auto,
+             f, G, J, r, jump_v, cnt):
+    """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst)."""
+    apply_automation(pf, auto, t + h)
+    _predict(nh, h, h1, x, x1, xp)
+    a0 = _coefficients(order, h, h1, x, x1, c)
+    for i in range(x.shape[0]):
+        xn[i] = xp[i]
+    outcome, worst = newton(xn, t + h, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r,
+                            xp, jump_v, cnt)
+    if outcome == N_OK and jump_v > 0.0:
+        for i in range(1, x.shape[0]):
+            if unk[i, U_VOLT] > 0.0 and abs(xn[i] - xp[i]) > jump_v:
+                return N_JUMPED_CONVERGED, i
+    return outcome, worst
+
+
+@numba.njit(cache=True)
+def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted):
+    """Weighted max-norm of the local error estimate (1.0 = at tolerance).
+
+    ``weighted`` False holds every unknown to the full tolerance."""
+    n = x.shape[0]
+    err = 0.0
+    if order == 2:
+        # quadratic through (t-h1-h2, x2), (t-h1, x1), (t, x) extrapolated to t+h
+        ta = -(h1 + h2)
+        tb = -h1
+        la = (h * (h - tb)) / ((ta) * (ta - tb))
+        lb = (h * (h - ta)) / ((tb) * (tb - ta))
+        lc = ((h - ta) * (h - tb)) / ((-ta) * (-tb))
+        fac = h * (h + h1) / ((2.0 * h + h1) * (h + h1 + h2))
+        fac = fac / (1.0 + fac)
+        for i in range(1, n):
+            p = la * x2[i] + lb * x1[i] + lc * x[i]
+            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
+            e = abs(xn[i] - p) * fac / scale
+            if e > err:
+                err = e
+    else:
+        fac = h / (2.0 * h + h1)
+        for i in range(1, n):
+            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
+            e = abs(xn[i] - xp[i]) * fac / scale
+            if e > err:
+                err = e
+    return err
+
+
+@numba.njit(cache=True)
+def _accept(st, t_new, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, order):
+    n = x.shape[0]
+    for i in range(n):
+        x2[i] = x1[i]
+        x1[i] = x[i]
+        x[i] = xn[i]
+    st[S_H2] = st[S_H1]
+    st[S_H1] = h
+    st[S_T] = t_new
+    st[S_NHIST] = min(st[S_NHIST] + 1.0, 2.0)
+    out_t[k] = t_new
+    for j in range(rec.shape[0]):
+        out_y[k, j] = x[rec[j]]
+    out_o[k] = order
+    return k + 1
+
+
+@numba.njit(cache=True)
+def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, out_o, cnt):
+    """Step from st[S_T] towards opt[O_T_END], recording accepted points.
+
+    Returns (points recorded, status): 0 reached the end, 1 output buffer full,
+    2 failed (st[S_T] is the time and st[S_FAIL_INDEX] the worst unknown).
+    ``out_o`` holds the interpolation order valid on the interval ending at each
+    point: 2 (quadratic through the last three points) or 1 (linear).
+    """
+    n = x.shape[0]
+    f = np.zeros(n)
+    G = np.zeros((n, n))
+    J = np.zeros((n, n))
+    r = np.zeros(n)
+    c = np.zeros(n)
+    xn = np.zeros(n)
+    xp = np.zeros(n)
+    xlo = np.zeros(n)
+    t_end = opt[O_T_END]
+    rtol = opt[O_RTOL]
+    hmax = opt[O_HMAX]
+    hmin = opt[O_HMIN]
+    event_dt = opt[O_EVENT_DT]
+    jump_v = opt[O_JUMP_V]
+    growth = opt[O_GROWTH]
+    cap = out_t.shape[0]
+    k = 0
+    while True:
+        t = st[S_T]
+        remaining = t_end - t
+        if remaining <= 1e-15 * max(1.0, abs(t_end)):
+            return k, 0
+        if k >= cap:
+            return k, 1
+        h = min(st[S_H], hmax)
+        if h >= remaining:
+            h = remaining
+        elif h > 0.5 * remaining:
+            h = 0.5 * remaining
+        mode = int(st[S_MODE])
+        nh = int(st[S_NHIST])
+        h1 = st[S_H1]
+        h2 = st[S_H2]
+        order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
+        jv = jump_v if mode == MODE_NORMAL else 0.0
+        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df,
+                                  unk, opt, auto, f, G, J, r, jv, cnt)
+        if mode == MODE_NORMAL and outcome != N_OK:
+            if h > event_dt:
+                # A flip inside (t, t+h]: bracket it by bisection.
+                lo = 0.0
+                hi = h
+                have_lo = False
+                while hi - lo > event_dt:
+                    mid = 0.5 * (lo + hi)
+                    cnt[K_TRIALS] += 1
+                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, c, M, pf, nf, tab,
+                                      df, unk, opt, auto, f, G, J, r, jump_v, cnt)
+                    if o2 == N_OK:
+                        lo = mid
+                        have_lo = True
+                        for i in range(n):
+                            xlo[i] = xn[i]
+                    else:
+                        hi = mid
+                cnt[K_EVENTS] += 1
+                if have_lo:
+                    k = _accept(st, t + lo, lo, x, x1, x2, xlo, rec, out_t, out_y, out_o, k,
+                                order)
+                    cnt[K_STEPS] += 1
+                st[S_HNORMAL] = h
+                st[S_MODE] = MODE_RECOVER
+                st[S_NHIST] = 0.0
+                st[S_HGOAL] = h
+                st[S_H] = min(hi - lo, opt[O_H_RESTART])
+                continue
+            if outcome == N_JUMPED_CONVERGED:
+                # A flip at a step already this short: step over it as a recovery.
+                k = _accept(st, t + h, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, 1)
+                cnt[K_STEPS] += 1
+                st[S_NHIST] = 0.0
+            if outcome != N_FAILED:
+                # Stepping over a flip (this step was short already): recovery mode,
+                # where jumps are expected and no longer cut the iteration short.
+                cnt[K_EVENTS] += 1
+                st[S_MODE] = MODE_RECOVER
+                st[S_HGOAL] = max(st[S_HNORMAL], event_dt)
+                st[S_H] = min(h, opt[O_H_RESTART])
+                continue
+        if outcome == N_FAILED:
+            cnt[K_REJECT_NEWTON] += 1
+            st[S_H] = h * NEWTON_SHRINK
+            if st[S_H] < hmin:
+                st[S_FAIL_INDEX] = worst
+                return k, 2
+            continue
+        fac = growth
+        if nh >= 1:
+            # Error control in both modes; in recovery (backward Euler across a flip)
+            # the step may grow faster, by ``growth``, as the transient dies out.
+            err = _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, mode == MODE_NORMAL)
+            expo = 1.0 / (order + 1.0)
+            if err > 1.0:
+                cnt[K_REJECT_ERROR] += 1
+                st[S_H] = h * max(MIN_SHRINK, SAFETY * err ** (-expo))
+                if st[S_H] < hmin:
+                    st[S_FAIL_INDEX] = worst
+                    return k, 2
+                continue
+            top = MAX_GROWTH if mode == MODE_NORMAL else growth
+            if err > 0.0:
+                fac = min(top, max(MIN_SHRINK, SAFETY * err ** (-expo)))
+            else:
+                fac = top
+        k = _accept(st, t + h, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k,
+                    order if mode == MODE_NORMAL else 1)
+        cnt[K_STEPS] += 1
+        if mode == MODE_RECOVER:
+            hn = h * fac
+            if hn >= st[S_HGOAL]:
+                hn = st[S_HGOAL]
+                st[S_MODE] = MODE_NORMAL
+                st[S_NHIST] = 1.0
+            st[S_H] = hn
+        else:
+            st[S_HNORMAL] = h
+            st[S_H] = h * fac

@@ -1,0 +1,221 @@
+"""From a simulated listening-point voltage to 16-bit WAV audio.
+
+The engine simulates well above the audio rate (typically 192 kHz).  The steps to a
+WAV file are: :func:`decimate` to the audio rate with a linear-phase anti-alias
+filter, :func:`to_wav_samples` to remove DC, scale, fade and count clipping, and
+:func:`write_wav` to write the file atomically.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from functools import lru_cache
+from typing import BinaryIO
+
+import numpy as np
+import scipy.signal
+import soundfile
+
+from sim.fileio import atomic_path
+
+#: The anti-alias filter passes the band up to this fraction of the *output*
+#: Nyquist frequency flat (within ~0.001 dB): 20 kHz of the 24 kHz Nyquist
+#: frequency at 48 kHz, i.e. the whole audible band.
+PASSBAND_FRACTION = 20.0 / 24.0
+#: ...and attenuates everything from the output Nyquist frequency up by at least
+#: this much, so nothing aliases back into the output band above the noise floor
+#: of 16-bit audio (about 98 dB below full scale).
+STOPBAND_ATTENUATION_DB = 100.0
+
+#: Corner of the high-pass filter that removes slow drift at the listening point.
+#: 5 Hz is well below the lowest audible pitch (20 Hz) yet fast enough to take out
+#: the settling of coupling capacitors after power-on without a thump.
+HIGHPASS_HZ = 5.0
+#: Order of the Butterworth high-pass, applied forward and backward (zero phase,
+#: so waveforms keep their shape): the combined response is 2nd order, -6 dB at
+#: 5 Hz, -0.26 dB at 20 Hz and -0.1 dB at 32 Hz.  "Gentle" on purpose.
+HIGHPASS_ORDER = 1
+#: Peak level a normalised render is scaled to, in dBFS (1 dB of headroom so
+#: inter-sample peaks of the decoded audio do not clip).
+NORMALIZE_PEAK_DBFS = -1.0
+#: RMS level above which the first play of a render deserves a caution.  Levels are
+#: ``20 * log10(rms)`` of the samples (a full-scale square wave reads 0 dBFS, a
+#: full-scale sine -3 dBFS).  -12 dBFS RMS is about as loud as heavily compressed
+#: commercial music gets (a figure of common mastering practice, not a standard);
+#: above it a render is louder than the loudest ordinary program material at the
+#: same volume setting, and inverter circuits clipping into square waves easily
+#: reach -6 to 0 dBFS.
+LOUD_RMS_DBFS = -12.0
+#: Caution shown for a loud render.
+LOUD_WARNING = ("this render is loud ({rms_dbfs:.1f} dBFS RMS): start playback at a low "
+                "volume; headphones need extra care")
+
+
+@lru_cache(maxsize=16)
+def antialias_taps(factor: int) -> np.ndarray:
+    """Linear-phase low-pass FIR taps for decimating by ``factor`` (odd length).
+
+    A Kaiser-window design (scipy.signal.kaiserord / firwin) with passband edge
+    ``PASSBAND_FRACTION`` of the output Nyquist frequency, stopband from the output
+    Nyquist frequency, ``STOPBAND_ATTENUATION_DB`` of attenuation, unity DC gain.
+    Shape ``(taps,)``; the taps are symmetric, so the delay is exactly
+    ``(taps - 1) / 2`` input samples.
+    """
+    stop = 1.0 / factor                   # output Nyquist, relative to input Nyquist
+    passband = PASSBAND_FRACTION * stop
+    numtaps, beta = scipy.signal.kaiserord(STOPBAND_ATTENUATION_DB, stop - passband)
+    numtaps |= 1                          # odd length: the centre tap sits on a sample
+    taps = scipy.signal.firwin(numtaps, 0.5 * (passband + stop), window=("kaiser", beta))
+    taps.setflags(write=False)
+    return taps
+
+
+def decimate(volts, factor: int) -> np.ndarray:
+    """Low-pass filter and keep every ``factor``-th sample.
+
+    ``volts``: shape ``(n,)``.  Returns shape ``(ceil(n / factor),)`` where output
+    sample ``k`` corresponds to input sample ``k * factor`` (zero delay: the
+    linear-phase filter is centred on the kept sample).  The record is extended by
+    repeating its end values so the filter does not pull the ends toward zero.
+    ``factor == 1`` returns a copy.
+    """
+    x = np.asarray(volts, dtype=np.float64)
+    if x.ndim != 1:
+        raise ValueError(f"volts must be 1-D, got shape {x.shape}")
+    if int(factor) != factor or factor < 1:
+        raise ValueError(f"decimation factor must be a positive integer, got {factor!r}")
+    factor = int(factor)
+    if factor == 1 or x.size == 0:
+        return x.copy()
+    return scipy.signal.resample_poly(x, 1, factor, window=np.array(antialias_taps(factor)),
+                                      padtype="edge")
+
+
+def _dbfs(value: float) -> float | None:
+    return 20.0 * math.log10(value) if value > 0.0 else None
+
+
+def remove_dc(volts, rate_hz: float) -> np.ndarray:
+    """Subtract the mean, then high-pass at ``HIGHPASS_HZ`` forward and backward.
+
+    A first-order Butterworth section run forward, then backward over the result
+    (zero phase, like scipy.signal.sosfiltfilt, but without its end padding): each
+    pass starts in the steady state for the average level (Hann-weighted) of
+    the first ``1 / HIGHPASS_HZ`` seconds it meets, so neither an oscillation nor a slow
+    drift at the ends starts the filter with a step.  Shape ``(n,)`` in and out.
+    """
+    x = np.asarray(volts, dtype=np.float64)
+    if x.size == 0:
+        return x.copy()
+    x = x - np.mean(x)
+    sos = scipy.signal.butter(HIGHPASS_ORDER, HIGHPASS_HZ, btype="highpass", fs=rate_hz,
+                              output="sos")
+    steady = scipy.signal.sosfilt_zi(sos)
+    lead = max(1, min(x.size, int(round(rate_hz / HIGHPASS_HZ))))
+    weights = scipy.signal.windows.hann(lead + 2)[1:-1]
+
+    def level(y: np.ndarray) -> float:
+        # Hann-weighted mean: a tone in the lead-in leaves almost no residue.
+        return float(np.dot(weights, y[:lead]) / np.sum(weights))
+
+    forward, _ = scipy.signal.sosfilt(sos, x, zi=steady * level(x))
+    backward = forward[::-1]
+    result, _ = scipy.signal.sosfilt(sos, backward, zi=steady * level(backward))
+    return result[::-1].copy()
+
+
+def raised_cosine_fades(n: int, fade_samples: int) -> np.ndarray:
+    """Gain curve of shape ``(n,)``: raised-cosine fade in and out, 1 in between.
+
+    The first and last samples are exactly 0; each fade lasts ``fade_samples``
+    samples (shortened to half the record if the record is shorter).
+    """
+    gain = np.ones(n)
+    fade = min(int(fade_samples), n // 2)
+    if fade > 0:
+        ramp = 0.5 - 0.5 * np.cos(np.pi * np.arange(fade) / fade)
+        gain[:fade] = ramp
+        gain[n - fade:] = ramp[::-1]
+    return gain
+
+
+def clip_to_full_scale(samples) -> tuple[np.ndarray, int]:
+    """Clip samples to [-1, 1]; return ``(clipped copy, how many were beyond)``.
+
+    A sample of exactly +-1.0 is full scale, not clipped.
+    """
+    values = np.array(samples, dtype=np.float64)
+    beyond = int(np.count_nonzero(np.abs(values) > 1.0))
+    np.clip(values, -1.0, 1.0, out=values)
+    return values, beyond
+
+
+def to_wav_samples(volts, *, full_scale_volts: float, normalize: bool = False,
+                   fade_seconds: float = 0.005, rate_hz: float) -> tuple[np.ndarray, dict]:
+    """Turn a listening-point voltage into audio samples in [-1, 1].
+
+    ``volts``: shape ``(n,)`` sampled at ``rate_hz`` (the audio rate, after
+    :func:`decimate`).  Steps: remove DC (:func:`remove_dc`: the mean, then a
+    gentle zero-phase 5 Hz high-pass for slow drift); scale by ``1 / full_scale_volts`` so renders of variants keep
+    their relative loudness, or with ``normalize=True`` so the peak lands at
+    ``NORMALIZE_PEAK_DBFS``; raised-cosine fades of ``fade_seconds`` at both ends;
+    then clip to [-1, 1], counting every sample that was beyond (exactly +-1.0 is
+    not clipped).
+
+    Returns ``(samples, info)``: ``samples`` float64 shape ``(n,)``; ``info`` =
+    ``{"gain"``: samples per volt, ``"peak_dbfs"``: peak before clipping (above 0
+    when clipped), ``"rms_dbfs"``: ``20 log10`` of the RMS of the written samples,
+    ``"clipped_samples"``: int, ``"normalized"``: bool``}``; the levels are ``None``
+    for silence.
+    """
+    full_scale = float(full_scale_volts)
+    if not math.isfinite(full_scale) or full_scale <= 0.0:
+        raise ValueError(f"full_scale_volts must be positive, got {full_scale_volts!r}")
+    x = np.asarray(volts, dtype=np.float64)
+    if x.ndim != 1:
+        raise ValueError(f"volts must be 1-D, got shape {x.shape}")
+    if not np.all(np.isfinite(x)):
+        raise ValueError("volts contain NaN or infinite values")
+    ac = remove_dc(x, rate_hz)
+    ac *= raised_cosine_fades(ac.size, int(round(fade_seconds * rate_hz)))
+    peak_volts = float(np.max(np.abs(ac))) if ac.size else 0.0
+    gain = 1.0 / full_scale
+    if normalize and peak_volts > 0.0:
+        gain = 10.0 ** (NORMALIZE_PEAK_DBFS / 20.0) / peak_volts
+    peak = peak_volts * gain
+    samples, clipped = clip_to_full_scale(ac * gain)
+    rms = float(np.sqrt(np.mean(samples * samples))) if samples.size else 0.0
+    info = {"gain": gain, "peak_dbfs": _dbfs(peak), "rms_dbfs": _dbfs(rms),
+            "clipped_samples": clipped, "normalized": bool(normalize)}
+    return samples, info
+
+
+def first_play_warning(info: dict) -> str | None:
+    """A caution for the first play when ``info["rms_dbfs"]`` exceeds ``LOUD_RMS_DBFS``."""
+    rms_dbfs = info.get("rms_dbfs")
+    if rms_dbfs is None or rms_dbfs <= LOUD_RMS_DBFS:
+        return None
+    return LOUD_WARNING.format(rms_dbfs=rms_dbfs)
+
+
+def write_wav(path: str | os.PathLike | BinaryIO, samples, rate_hz: float) -> None:
+    """Write ``samples`` (shape ``(n,)`` in [-1, 1]) as mono 16-bit PCM WAV.
+
+    A path is written atomically (temporary file in the same folder, then renamed);
+    an open binary file object is written in place.  ``rate_hz`` must be a whole
+    number of hertz.
+    """
+    data = np.asarray(samples, dtype=np.float64)
+    if data.ndim != 1:
+        raise ValueError(f"samples must be 1-D (mono), got shape {data.shape}")
+    if np.any(np.abs(data) > 1.0) or not np.all(np.isfinite(data)):
+        raise ValueError("samples must be finite and within [-1, 1]; use to_wav_samples")
+    rate = int(round(rate_hz))
+    if rate <= 0 or abs(rate - rate_hz) > 1e-9 * rate:
+        raise ValueError(f"WAV sample rate must be a positive whole number of Hz, got {rate_hz!r}")
+    if hasattr(path, "write"):
+        soundfile.write(path, data, rate, subtype="PCM_16", format="WAV")
+        return
+    with atomic_path(path) as temp:
+        soundfile.write(temp, data, rate, subtype="PCM_16", format="WAV")

@@ -1,0 +1,158 @@
+"""Compile a Patch into a Circuit: numbered unknowns and flat numeric arrays per kind.
+
+Unknowns: index 0 is the ground net ``gnd`` (always 0 V, never solved for), then every
+other net in the order first named (``vdd`` first), then internal nodes of parts
+(``D1.junction``), then branch currents (``SP1.current``).
+
+Every voltage unknown also gets a stray capacitance to ground, ``STRAY_FARADS``: it is
+physically there on a breadboard, and it makes the mass matrix invertible so the very
+same equations can be handed to scipy's Radau as an ordinary differential equation.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+import blocks
+from sim import kernel
+
+#: Stray capacitance from every net to ground (F).
+#: common practice: a breadboard row and its wiring add a few pF to every net.
+STRAY_FARADS = 2e-12
+
+#: A diagonal mass entry this many times the stray capacitance marks a "slow" unknown
+#: (a part's own capacitor or inductor), whose error is controlled at full tolerance.
+SLOW_MASS_RATIO = 10.0
+
+#: Absolute tolerance of a branch current relative to that of a node voltage (A per V):
+#: 1 uA for 1 mV, the current of a small signal through a kilohm.
+AMPS_PER_VOLT_TOLERANCE = 1e-3
+
+
+@dataclass
+class Circuit:
+    """Everything the stepper needs, as flat arrays (see sim/kernel.py for the layout).
+
+    names: (n,) unknown names; ``names[0] == "gnd"``.
+    mass: (n, n) constant mass matrix (F, H); row/col 0 unused.
+    pf, nf, tab, df: parameters (float64), unknown indices (int64), kind table, data blob.
+    is_volt: (n,) bool, True for node voltages, False for branch currents.
+    slow: (n,) bool, True where a part's capacitance/inductance sits on the unknown.
+    max_step_seconds: smallest step limit any part asks for (or None).
+    param_index: {(ref, param): flat index into pf} for moving parameters.
+    """
+
+    names: list[str]
+    index: dict[str, int]
+    mass: np.ndarray
+    pf: np.ndarray
+    nf: np.ndarray
+    tab: np.ndarray
+    df: np.ndarray
+    is_volt: np.ndarray
+    slow: np.ndarray
+    max_step_seconds: float | None
+    param_index: dict[tuple[str, str], int]
+    supply_volts: float
+    parts: dict[str, tuple[str, list[int]]] = field(default_factory=dict)
+
+    @property
+    def size(self) -> int:
+        return len(self.names)
+
+
+def _all_parts(patch):
+    yield patch.supply
+    yield from patch.parts.values()
+
+
+def compile_patch(patch) -> Circuit:
+    """Number the unknowns and lay out the per-kind arrays of ``patch`` (a sim.patch.Patch)."""
+    names = ["gnd", "vdd"]
+    index = {"gnd": 0, "vdd": 1}
+
+    def net(name: str) -> int:
+        if name not in index:
+            index[name] = len(names)
+            names.append(name)
+        return index[name]
+
+    for part in _all_parts(patch):
+        for nets in part.nets.values():
+            for n in nets:
+                net(n)
+    is_volt = [True] * len(names)
+    part_nodes: dict[str, list[int]] = {}
+    per_kind: dict[str, list] = {k: [] for k in kernel.kind_order()}
+    for part in _all_parts(patch):
+        kind = blocks.REGISTRY[part.kind]
+        local = [index[n] for key, _ in kind.terminals for n in part.nets[key]]
+        if kind.rails:
+            local += [index["vdd"], index["gnd"]]
+        for name in kind.internal:
+            local.append(len(names))
+            names.append(f"{part.ref}.{name}")
+            is_volt.append(True)
+        for name in kind.branches:
+            local.append(len(names))
+            names.append(f"{part.ref}.{name}")
+            is_volt.append(False)
+        per_kind[part.kind].append((part, local))
+        part_nodes[part.ref] = local
+
+    n = len(names)
+    mass = np.zeros((n, n))
+    pf_rows, nf_rows, d_parts, tab = [], [], [], np.zeros((len(per_kind), kernel.TAB_SIZE), np.int64)
+    p_off = n_off = d_off = 0
+    param_index: dict[tuple[str, str], int] = {}
+    steps: list[float] = []
+    for ki, kind_name in enumerate(kernel.kind_order()):
+        kind = blocks.REGISTRY[kind_name]
+        pcols = len(kind.kernel_params) + 2
+        ncols = len(kind.local_names())
+        kind_blob: list[np.ndarray] = []
+        blob_len = 0
+        rows = per_kind[kind_name]
+        for r, (part, local) in enumerate(rows):
+            blob = kind.data(part.values, patch.base_dir) if kind.data else np.zeros(0)
+            row = kind.row(part.values) + [float(blob_len), float(blob.size)]
+            for c, p in enumerate(kind.kernel_params):
+                param_index[(part.ref, p.name)] = p_off + r * pcols + c
+            pf_rows.append(row)
+            nf_rows.append(local)
+            kind_blob.append(np.asarray(blob, dtype=float))
+            blob_len += blob.size
+            for i, j, value in kind.mass(part.values):
+                mass[local[i], local[j]] += value
+            if kind.max_step is not None:
+                limit = kind.max_step(part.values, blob)
+                if limit:
+                    steps.append(float(limit))
+        tab[ki] = (p_off, pcols, n_off, ncols, len(rows), d_off, blob_len)
+        p_off += len(rows) * pcols
+        n_off += len(rows) * ncols
+        d_off += blob_len
+        d_parts.extend(kind_blob)
+
+    diag_part = np.diag(mass).copy()
+    for i in range(1, n):
+        if is_volt[i]:
+            mass[i, i] += STRAY_FARADS
+    slow = np.zeros(n, bool)
+    slow[1:] = np.where(np.asarray(is_volt[1:]), diag_part[1:] > SLOW_MASS_RATIO * STRAY_FARADS,
+                        diag_part[1:] > 0.0)
+    pf = np.array([v for row in pf_rows for v in row], dtype=np.float64)
+    nf = np.array([v for row in nf_rows for v in row], dtype=np.int64)
+    df = np.concatenate(d_parts) if d_parts else np.zeros(0)
+    return Circuit(
+        names=names, index={nm: i for i, nm in enumerate(names)}, mass=mass,
+        pf=pf if pf.size else np.zeros(1), nf=nf if nf.size else np.zeros(1, np.int64),
+        tab=tab, df=df if df.size else np.zeros(1),
+        is_volt=np.asarray(is_volt), slow=slow,
+        max_step_seconds=min(steps) if steps else None, param_index=param_index,
+        supply_volts=float(patch.supply.values["volts"]),
+        parts={ref: (kind, nodes) for ref, kind, nodes in
+               ((p.ref, p.kind, part_nodes[p.ref]) for p in _all_parts(patch))},
+    )

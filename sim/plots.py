@@ -1,0 +1,167 @@
+"""Waveform and spectrum plots as PNG files.
+
+Figures are drawn with matplotlib's object interface on the Agg canvas (no pyplot,
+no global backend switch, safe without a display) and written atomically.  The look
+is our own and deliberately plain: white background, light grid, one colour per
+trace, labelled axes with units.
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from sim.fileio import atomic_path
+
+#: Figure width in inches, and height per stacked trace plus fixed room for titles.
+FIGURE_WIDTH_IN = 10.0
+HEIGHT_PER_TRACE_IN = 1.8
+HEIGHT_BASE_IN = 2.0
+#: Resolution of the PNG (1000 pixels wide).
+DPI = 100
+#: Most points drawn per line.  Longer records are reduced to the minimum and
+#: maximum of each bucket (keeping every peak visible); 4 points per pixel column
+#: of a 1000-pixel plot is more than the eye can resolve.
+MAX_PLOT_POINTS = 4000
+#: Trace colours, cycled: dark, saturated, distinguishable in greyscale print.
+TRACE_COLOURS = ("#1f4e79", "#8c2d04", "#2d6a2e", "#5b2a86", "#7a5c00", "#00606b")
+#: Harmonics shown on a spectrum plot (the x axis ends half a harmonic beyond).
+SPECTRUM_HARMONICS = 12
+#: Lowest level shown on a spectrum plot, below its highest peak, in dB.
+SPECTRUM_RANGE_DB = 120.0
+#: Upper frequency of a spectrum plot with no fundamental given (top of hearing).
+SPECTRUM_DEFAULT_TOP_HZ = 20000.0
+
+
+def _new_figure(height_in: float) -> Figure:
+    fig = Figure(figsize=(FIGURE_WIDTH_IN, height_in), dpi=DPI, facecolor="white")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _save(fig: Figure, path: str | os.PathLike) -> None:
+    with atomic_path(path) as temp:
+        fig.savefig(temp, format="png", dpi=DPI, facecolor="white")
+
+
+def envelope(x: np.ndarray, y: np.ndarray, max_points: int = MAX_PLOT_POINTS,
+             keep: str = "minmax") -> tuple[np.ndarray, np.ndarray]:
+    """Reduce a line of shape ``(n,)`` to about ``max_points`` points for drawing.
+
+    ``keep="minmax"`` keeps each bucket's minimum and maximum (in time order), so
+    narrow spikes survive; ``keep="max"`` keeps only the maximum (for spectra).
+    """
+    n = y.size
+    if n <= max_points:
+        return x, y
+    per_bucket = 2 if keep == "minmax" else 1
+    size = int(np.ceil(n * per_bucket / max_points))
+    buckets = n // size
+    xb = x[:buckets * size].reshape(buckets, size)
+    yb = y[:buckets * size].reshape(buckets, size)
+    rows = np.arange(buckets)
+    if keep == "max":
+        pick = np.argmax(yb, axis=1)
+        return xb[rows, pick], yb[rows, pick]
+    lo, hi = np.argmin(yb, axis=1), np.argmax(yb, axis=1)
+    first, second = np.minimum(lo, hi), np.maximum(lo, hi)
+    xs = np.stack([xb[rows, first], xb[rows, second]], axis=1).ravel()
+    ys = np.stack([yb[rows, first], yb[rows, second]], axis=1).ravel()
+    return xs, ys
+
+
+def waveform_plot(path: str | os.PathLike, times_s, traces: dict, title: str,
+                  subtitle: str | None = None) -> None:
+    """Stacked waveforms, one subplot per trace, sharing a time axis in ms.
+
+    ``times_s``: shape ``(n,)`` seconds; ``traces``: name -> volts of shape ``(n,)``.
+    The figure is ``FIGURE_WIDTH_IN`` x (2 + 1.8 per trace) inches at ``DPI``.
+    """
+    if not traces:
+        raise ValueError("waveform_plot needs at least one trace")
+    t_ms = np.asarray(times_s, dtype=np.float64) * 1e3
+    count = len(traces)
+    fig = _new_figure(HEIGHT_BASE_IN + HEIGHT_PER_TRACE_IN * count)
+    axes = fig.subplots(count, 1, sharex=True, squeeze=False)[:, 0]
+    for i, (ax, (name, volts)) in enumerate(zip(axes, traces.items())):
+        v = np.asarray(volts, dtype=np.float64)
+        if v.shape != t_ms.shape:
+            raise ValueError(f"trace {name!r} has shape {v.shape}, times have {t_ms.shape}")
+        xs, ys = envelope(t_ms, v)
+        ax.plot(xs, ys, color=TRACE_COLOURS[i % len(TRACE_COLOURS)], linewidth=1.0)
+        ax.set_ylabel(f"{name} (V)")
+        ax.grid(True, color="#d0d0d0", linewidth=0.6)
+        ax.margins(x=0.0, y=0.08)
+        for side in ("top", "right"):
+            ax.spines[side].set_visible(False)
+    axes[-1].set_xlabel("time (ms)")
+    fig.suptitle(title, fontsize=13, fontweight="bold", x=0.01, ha="left")
+    if subtitle:
+        fig.text(0.01, 1.0 - 0.42 / fig.get_figheight(), subtitle, fontsize=9, color="#444444",
+                 ha="left", va="top")
+    fig.tight_layout(rect=(0.0, 0.0, 1.0, 1.0 - 0.5 / fig.get_figheight()))
+    _save(fig, path)
+
+
+def amplitude_spectrum(volts, rate_hz: float) -> tuple[np.ndarray, np.ndarray]:
+    """Hann-windowed amplitude spectrum: ``(freqs_hz, level_db)``, both ``(n//2+1,)``.
+
+    Levels are dB re 1 V peak, corrected for the window's coherent gain so a steady
+    sine of amplitude ``A`` volts shows a peak near ``20 log10(A)``.  The mean is
+    removed first.
+    """
+    x = np.asarray(volts, dtype=np.float64)
+    window = np.hanning(x.size)
+    spectrum = np.fft.rfft((x - np.mean(x)) * window)
+    amplitude = 2.0 * np.abs(spectrum) / np.sum(window)
+    with np.errstate(divide="ignore"):
+        level = 20.0 * np.log10(amplitude)
+    return np.fft.rfftfreq(x.size, 1.0 / rate_hz), level
+
+
+def spectrum_plot(path: str | os.PathLike, volts, rate_hz: float,
+                  fundamental_hz: float | None, title: str) -> None:
+    """Magnitude spectrum in dB (Hann window) with harmonics marked and numbered.
+
+    ``volts``: shape ``(n,)`` sampled at ``rate_hz``.  With ``fundamental_hz`` the
+    axis spans ``SPECTRUM_HARMONICS`` harmonics and each harmonic below Nyquist
+    gets a dashed marker labelled with its number; without it the axis goes up
+    to ``SPECTRUM_DEFAULT_TOP_HZ`` (or Nyquist).
+    """
+    freqs, level = amplitude_spectrum(volts, rate_hz)
+    nyquist = rate_hz / 2.0
+    if fundamental_hz:
+        top = min(nyquist, (SPECTRUM_HARMONICS + 0.5) * fundamental_hz)
+    else:
+        top = min(nyquist, SPECTRUM_DEFAULT_TOP_HZ)
+    shown = freqs <= top
+    xs, ys = envelope(freqs[shown], level[shown], keep="max")
+    finite = ys[np.isfinite(ys)]
+    peak = float(finite.max()) if finite.size else 0.0
+    floor = peak - SPECTRUM_RANGE_DB
+    fig = _new_figure(HEIGHT_BASE_IN + 2.0 * HEIGHT_PER_TRACE_IN)
+    ax = fig.subplots()
+    ax.plot(xs, np.maximum(np.nan_to_num(ys, neginf=floor), floor), color=TRACE_COLOURS[0],
+            linewidth=0.9)
+    ax.set_xlim(0.0, top)
+    ax.set_ylim(floor, peak + 10.0)
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("level (dB re 1 V peak)")
+    ax.grid(True, color="#d0d0d0", linewidth=0.6)
+    for side in ("top", "right"):
+        ax.spines[side].set_visible(False)
+    if fundamental_hz:
+        for h in range(1, SPECTRUM_HARMONICS + 1):
+            f = h * fundamental_hz
+            if f > top:
+                break
+            ax.axvline(f, color=TRACE_COLOURS[1], linestyle="--", linewidth=0.7, alpha=0.6)
+            ax.annotate(str(h), xy=(f, peak + 9.0), ha="center", va="top", fontsize=8,
+                        color=TRACE_COLOURS[1])
+        title = f"{title}  (fundamental {fundamental_hz:.6g} Hz)"
+    ax.set_title(title, loc="left", fontsize=12, fontweight="bold")
+    fig.tight_layout()
+    _save(fig, path)

@@ -1,0 +1,210 @@
+"""Run a compiled Circuit in time: the compiled stepper, or scipy's Radau as reference.
+
+Both start at power-on: every unknown at zero (capacitors discharged) while the
+supply's EMF ramps up, and both return a trace read through ``uniform()``.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from sim import kernel
+from sim.compile import AMPS_PER_VOLT_TOLERANCE, Circuit
+from sim.errors import SolverError
+from sim.trace import DenseTrace, StepTrace
+
+
+@dataclass(frozen=True)
+class StepOptions:
+    """Accuracy and effort settings of the compiled stepper.
+
+    rtol, atol_volts: local error tolerance on the slow (audible) unknowns.
+    fast_factor: how much looser the tolerance is on fast unknowns (nets with only
+        stray capacitance, which follow the slow ones algebraically).
+    max_step_seconds: longest step (keeps the interpolation between steps faithful to
+        the audio band); parts can ask for less (a test tone).
+    event_seconds: how closely a flip instant is bracketed.
+    jump_fraction: a change beyond this fraction of the supply within one step,
+        unexplained by the predictor, marks a flip.
+    growth: step growth per recovery step after a flip.
+    restart_seconds: first step after a flip; of the order of the regenerative time
+        constant (stray capacitance over a gate's transconductance, 2 pF / 2 mS = 1 ns).
+    """
+
+    rtol: float = 3e-4
+    atol_volts: float = 3e-5
+    # Measured on the relaxation-oscillator scenario against Radau at rtol 1e-8: fast
+    # factor 1 gives 0.04 cent, 3 gives 0.09 cent, 100 gives 1.5 cent (the flips'
+    # slow passage through the fold must be resolved for the pitch to be right).
+    fast_factor: float = 1.0
+    max_step_seconds: float = 40e-6
+    min_step_seconds: float = 1e-15
+    event_seconds: float = 20e-9
+    jump_fraction: float = 0.1
+    growth: float = 3.0
+    restart_seconds: float = 1e-9
+    max_newton_iterations: int = 10
+    newton_fraction: float = 0.01
+    chunk_seconds: float = 0.05
+
+
+#: Newton damping: no node voltage moves by more than this fraction of the supply
+#: (and at least 1 V) in one iteration.
+NEWTON_STEP_FRACTION = 0.25
+
+COUNTER_NAMES = ("steps", "rejected_error", "rejected_newton", "newton_iterations", "events",
+                 "event_trials")
+
+#: Initial capacity of the accepted-point buffer per chunk.
+POINTS_PER_CHUNK = 1 << 16
+
+
+@dataclass
+class Automation:
+    """A parameter moving linearly from value0 at t0 to value1 at t1 (seconds)."""
+
+    ref: str
+    param: str
+    t0: float
+    t1: float
+    value0: float
+    value1: float
+
+
+def _automation_table(circuit: Circuit, automation) -> np.ndarray:
+    rows = []
+    for a in automation or ():
+        rows.append((circuit.param_index[(a.ref, a.param)], a.t0, a.t1, a.value0, a.value1))
+    return np.array(rows, dtype=np.float64).reshape(-1, 5)
+
+
+def _unknown_table(circuit: Circuit, opts: StepOptions) -> np.ndarray:
+    unk = np.zeros((circuit.size, 3))
+    unk[:, 0] = np.where(circuit.is_volt, opts.atol_volts, opts.atol_volts * AMPS_PER_VOLT_TOLERANCE)
+    unk[:, 1] = np.where(circuit.slow, 1.0, opts.fast_factor)
+    unk[:, 2] = circuit.is_volt.astype(float)
+    return unk
+
+
+def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOptions = StepOptions(),
+             automation=(), progress=None) -> StepTrace:
+    """Integrate from power-on to ``seconds`` with the compiled stepper.
+
+    record: names of unknowns to keep (nets, ``D1.junction``...). progress: optional
+    callable(simulated_seconds) called between chunks. Raises SolverError when Newton's
+    method fails at the smallest step, naming the time and the nets involved.
+    """
+    k = kernel.load()
+    n = circuit.size
+    hmax = opts.max_step_seconds
+    if circuit.max_step_seconds:
+        hmax = min(hmax, circuit.max_step_seconds)
+    opt = np.zeros(k.O_SIZE)
+    opt[k.O_RTOL] = opts.rtol
+    opt[k.O_HMAX] = hmax
+    opt[k.O_HMIN] = opts.min_step_seconds
+    opt[k.O_EVENT_DT] = opts.event_seconds
+    opt[k.O_JUMP_V] = opts.jump_fraction * circuit.supply_volts
+    opt[k.O_MAX_ITER] = opts.max_newton_iterations
+    opt[k.O_GROWTH] = opts.growth
+    opt[k.O_H_RESTART] = opts.restart_seconds
+    opt[k.O_NEWTON_FRAC] = opts.newton_fraction
+    opt[k.O_DV_MAX] = max(1.0, NEWTON_STEP_FRACTION * circuit.supply_volts)
+    st = np.zeros(k.S_SIZE)
+    st[k.S_H] = opts.restart_seconds
+    st[k.S_H1] = opts.restart_seconds
+    st[k.S_MODE] = k.MODE_RECOVER
+    st[k.S_HGOAL] = hmax
+    st[k.S_HNORMAL] = hmax
+    x = np.zeros(n)
+    x1 = np.zeros(n)
+    x2 = np.zeros(n)
+    unk = _unknown_table(circuit, opts)
+    auto = _automation_table(circuit, automation)
+    pf = circuit.pf.copy()
+    rec = np.array([circuit.index[name] for name in record], dtype=np.int64)
+    cnt = np.zeros(k.K_SIZE, dtype=np.int64)
+    times = [np.zeros(1)]
+    values = [np.zeros((1, len(rec)))]
+    orders = [np.ones(1, dtype=np.int64)]
+    out_t = np.zeros(POINTS_PER_CHUNK)
+    out_y = np.zeros((POINTS_PER_CHUNK, len(rec)))
+    out_o = np.zeros(POINTS_PER_CHUNK, dtype=np.int64)
+    started = time.perf_counter()
+    t_chunk = 0.0
+    while st[k.S_T] < seconds * (1 - 1e-14):
+        t_chunk = min(seconds, st[k.S_T] + opts.chunk_seconds)
+        opt[k.O_T_END] = t_chunk
+        while True:
+            got, status = k.run(st, x, x1, x2, circuit.mass, pf, circuit.nf, circuit.tab,
+                                circuit.df, unk, opt, auto, rec, out_t, out_y, out_o, cnt)
+            times.append(out_t[:got].copy())
+            values.append(out_y[:got].copy())
+            orders.append(out_o[:got].copy())
+            if status == 2:
+                worst = circuit.names[int(st[k.S_FAIL_INDEX])]
+                raise SolverError(
+                    f"the solver could not converge at t = {st[k.S_T] * 1e3:.6f} ms "
+                    f"(simulated time); the net that would not settle: {worst}. "
+                    "Check for parts that make this net's voltage undefined (two outputs "
+                    "fighting, a diode loop with no resistance) or try --quality fine.",
+                    seconds=float(st[k.S_T]), nets=(worst,))
+            if status == 0:
+                break
+        if progress is not None:
+            progress(float(st[k.S_T]))
+    counters = dict(zip(COUNTER_NAMES, (int(c) for c in cnt)))
+    counters["wall_seconds"] = time.perf_counter() - started
+    return StepTrace(names=list(record), times=np.concatenate(times),
+                     values=np.concatenate(values), order=np.concatenate(orders),
+                     counters=counters)
+
+
+def simulate_reference(circuit: Circuit, seconds: float, record: list[str], rtol: float = 1e-9,
+                       atol_volts: float = 1e-9, automation=()) -> DenseTrace:
+    """The same equations through scipy.integrate.solve_ivp (Radau, dense output).
+
+    dx/dt = -M^-1 f(x, t) with the Jacobian -M^-1 G(x, t), from the same compiled
+    ``evaluate`` as the stepper. Slow (minutes per simulated second at tight
+    tolerances): for cross-checks, not for listening.
+    """
+    from scipy.integrate import solve_ivp
+
+    k = kernel.load()
+    n = circuit.size
+    minv = np.linalg.inv(circuit.mass[1:, 1:])
+    pf = circuit.pf.copy()
+    auto = _automation_table(circuit, automation)
+    f = np.zeros(n)
+    G = np.zeros((n, n))
+    xfull = np.zeros(n)
+    calls = {"f": 0, "jac": 0}
+
+    def rhs(t, y):
+        calls["f"] += 1
+        xfull[1:] = y
+        k.apply_automation(pf, auto, t)
+        k.evaluate(xfull, t, pf, circuit.nf, circuit.tab, circuit.df, f, G)
+        return -minv @ f[1:]
+
+    def jac(t, y):
+        calls["jac"] += 1
+        xfull[1:] = y
+        k.apply_automation(pf, auto, t)
+        k.evaluate(xfull, t, pf, circuit.nf, circuit.tab, circuit.df, f, G)
+        return -minv @ G[1:, 1:]
+
+    atol = np.where(circuit.is_volt[1:], atol_volts, atol_volts * AMPS_PER_VOLT_TOLERANCE)
+    started = time.perf_counter()
+    sol = solve_ivp(rhs, (0.0, seconds), np.zeros(n - 1), method="Radau", rtol=rtol, atol=atol,
+                    jac=jac, dense_output=True)
+    if not sol.success:
+        raise SolverError(f"the reference solver failed: {sol.message}")
+    rows = [circuit.index[name] - 1 for name in record]
+    counters = {"steps": int(sol.t.size - 1), "rhs_calls": sol.nfev, "jacobians": sol.njev,
+                "factorisations": sol.nlu, "wall_seconds": time.perf_counter() - started}
+    return DenseTrace(names=list(record), sol=sol.sol, rows=rows, t_end=seconds,
+                      counters=counters)
