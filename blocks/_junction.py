@@ -9,10 +9,6 @@ import math
 
 import numba
 
-#: Current (A) above which a junction's exponential is continued as a straight line,
-#: so Newton's method never overflows; far above anything a small-signal part carries.
-JUNCTION_LINEAR_ABOVE_AMPS = 10.0
-
 #: Conductance (S) across every junction so a reverse-biased one is never an open
 #: circuit to Newton's method; 1 nA at 1 V, below any leakage that matters here.
 JUNCTION_MIN_SIEMENS = 1e-9
@@ -22,20 +18,31 @@ JUNCTION_MIN_SIEMENS = 1e-9
 CLM_SMOOTHING_VOLTS = 0.05
 
 
+#: Exponent above which a junction's exponential continues as a straight line, so
+#: Newton's method never overflows: exp(40) Is is far above any current these
+#: circuits carry for every diode here (Is >= 1e-18 A gives 0.2 A).
+JUNCTION_LINEAR_ABOVE = 40.0
+_EXP_LIMIT = math.exp(JUNCTION_LINEAR_ABOVE)
+
+#: Beyond this argument softplus(z) = z and sigmoid(z) = 1 to double precision.
+_SOFTPLUS_SATURATED = 36.0
+
+
 @numba.njit
 def junction(v, saturation_amps, n_vt):
     """Shockley diode current and conductance at forward voltage ``v`` (V).
 
-    i = Is (exp(v / (n VT)) - 1) + gmin v, continued linearly above
-    JUNCTION_LINEAR_ABOVE_AMPS. Returns (amps, siemens).
+    i = Is (exp(v / (n VT)) - 1) + gmin v, continued linearly above the exponent
+    JUNCTION_LINEAR_ABOVE. Returns (amps, siemens).
     source: Shockley diode equation (any semiconductor devices textbook).
     """
     u = v / n_vt
-    u_max = math.log(JUNCTION_LINEAR_ABOVE_AMPS / saturation_amps)
-    if u > u_max:
-        e = math.exp(u_max)
-        i = saturation_amps * (e * (1.0 + u - u_max) - 1.0)
-        g = saturation_amps * e / n_vt
+    if u > JUNCTION_LINEAR_ABOVE:
+        i = saturation_amps * (_EXP_LIMIT * (1.0 + u - JUNCTION_LINEAR_ABOVE) - 1.0)
+        g = saturation_amps * _EXP_LIMIT / n_vt
+    elif u < -JUNCTION_LINEAR_ABOVE:
+        i = -saturation_amps
+        g = 0.0
     else:
         e = math.exp(u)
         i = saturation_amps * (e - 1.0)
@@ -44,20 +51,18 @@ def junction(v, saturation_amps, n_vt):
 
 
 @numba.njit
-def softplus(z):
-    """log(1 + exp(z)) without overflow."""
+def softplus_sigmoid(z):
+    """(log(1 + exp(z)), 1 / (1 + exp(-z))) without overflow, sharing one exponential."""
+    if z > _SOFTPLUS_SATURATED:
+        return z, 1.0
+    if z < -_SOFTPLUS_SATURATED:
+        e = math.exp(z)
+        return e, e
     if z > 0.0:
-        return z + math.log1p(math.exp(-z))
-    return math.log1p(math.exp(z))
-
-
-@numba.njit
-def sigmoid(z):
-    """1 / (1 + exp(-z)) without overflow (the derivative of softplus)."""
-    if z >= 0.0:
-        return 1.0 / (1.0 + math.exp(-z))
+        e = math.exp(-z)
+        return z + math.log1p(e), 1.0 / (1.0 + e)
     e = math.exp(z)
-    return e / (1.0 + e)
+    return math.log1p(e), e / (1.0 + e)
 
 
 @numba.njit
@@ -73,12 +78,10 @@ def channel(vgs, vds, k, vt, clm, two_phi):
     inversion-charge interpolation of charge-based compact models.
     Returns (amps, d amps / d vgs, d amps / d vds).
     """
-    us = (vgs - vt) / two_phi
-    ud = (vgs - vds - vt) / two_phi
-    fs = two_phi * softplus(us)
-    fd = two_phi * softplus(ud)
-    ss = sigmoid(us)
-    sd = sigmoid(ud)
+    sp, ss = softplus_sigmoid((vgs - vt) / two_phi)
+    dp, sd = softplus_sigmoid((vgs - vds - vt) / two_phi)
+    fs = two_phi * sp
+    fd = two_phi * dp
     core = 0.5 * k * (fs * fs - fd * fd)
     # |vds| smoothed over CLM_SMOOTHING_VOLTS so the law is the same both ways round
     root = math.sqrt(vds * vds + CLM_SMOOTHING_VOLTS * CLM_SMOOTHING_VOLTS)

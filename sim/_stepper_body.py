@@ -267,14 +267,16 @@ def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted):
         fac = fac / (1.0 + fac)
         for i in range(1, n):
             p = la * x2[i] + lb * x1[i] + lc * x[i]
-            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
+            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (
+                unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
             e = abs(xn[i] - p) * fac / scale
             if e > err:
                 err = e
     else:
         fac = h / (2.0 * h + h1)
         for i in range(1, n):
-            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
+            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (
+                unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
             e = abs(xn[i] - xp[i]) * fac / scale
             if e > err:
                 err = e

@@ -28,14 +28,13 @@ PASSBAND_FRACTION = 20.0 / 24.0
 #: of 16-bit audio (about 98 dB below full scale).
 STOPBAND_ATTENUATION_DB = 100.0
 
-#: Corner of the high-pass filter that removes slow drift at the listening point.
-#: 5 Hz is well below the lowest audible pitch (20 Hz) yet fast enough to take out
-#: the settling of coupling capacitors after power-on without a thump.
-HIGHPASS_HZ = 5.0
-#: Order of the Butterworth high-pass, applied forward and backward (zero phase,
-#: so waveforms keep their shape): the combined response is 2nd order, -6 dB at
-#: 5 Hz, -0.26 dB at 20 Hz and -0.1 dB at 32 Hz.  "Gentle" on purpose.
-HIGHPASS_ORDER = 1
+#: Length of the moving average whose subtraction removes slow drift (a zero-phase
+#: FIR high-pass).  A Hann-weighted average over 0.4 s has its first null at
+#: 2 / 0.4 s = 5 Hz: the resulting high-pass is -9 dB at 2 Hz, -3.8 dB at 3 Hz,
+#: within 0.25 dB from 5 Hz up, within 0.04 dB from 10 Hz up and flat (under
+#: 0.001 dB) from 20 Hz up, so it takes out the settling of coupling capacitors
+#: and supply drift without touching any audible pitch.
+DRIFT_WINDOW_SECONDS = 0.4
 #: Peak level a normalised render is scaled to, in dBFS (1 dB of headroom so
 #: inter-sample peaks of the decoded audio do not clip).
 NORMALIZE_PEAK_DBFS = -1.0
@@ -97,32 +96,25 @@ def _dbfs(value: float) -> float | None:
 
 
 def remove_dc(volts, rate_hz: float) -> np.ndarray:
-    """Subtract the mean, then high-pass at ``HIGHPASS_HZ`` forward and backward.
+    """Remove DC and slow drift: subtract the mean, then a slow moving average.
 
-    A first-order Butterworth section run forward, then backward over the result
-    (zero phase, like scipy.signal.sosfiltfilt, but without its end padding): each
-    pass starts in the steady state for the average level (Hann-weighted) of
-    the first ``1 / HIGHPASS_HZ`` seconds it meets, so neither an oscillation nor a slow
-    drift at the ends starts the filter with a step.  Shape ``(n,)`` in and out.
+    The moving average is Hann-weighted over ``DRIFT_WINDOW_SECONDS`` and centred
+    (zero phase, so waveforms keep their shape); near the ends it is normalised by
+    the part of the window that lies inside the record, so the ends are not pulled
+    toward zero and a tone's level is kept there too (an IIR high-pass, even run
+    forward and backward, starts out of its steady state and leaves a decaying
+    offset of about ``corner / pitch`` of the amplitude at each end).
+    Shape ``(n,)`` in and out.
     """
     x = np.asarray(volts, dtype=np.float64)
     if x.size == 0:
         return x.copy()
     x = x - np.mean(x)
-    sos = scipy.signal.butter(HIGHPASS_ORDER, HIGHPASS_HZ, btype="highpass", fs=rate_hz,
-                              output="sos")
-    steady = scipy.signal.sosfilt_zi(sos)
-    lead = max(1, min(x.size, int(round(rate_hz / HIGHPASS_HZ))))
-    weights = scipy.signal.windows.hann(lead + 2)[1:-1]
-
-    def level(y: np.ndarray) -> float:
-        # Hann-weighted mean: a tone in the lead-in leaves almost no residue.
-        return float(np.dot(weights, y[:lead]) / np.sum(weights))
-
-    forward, _ = scipy.signal.sosfilt(sos, x, zi=steady * level(x))
-    backward = forward[::-1]
-    result, _ = scipy.signal.sosfilt(sos, backward, zi=steady * level(backward))
-    return result[::-1].copy()
+    taps = int(round(DRIFT_WINDOW_SECONDS * rate_hz)) | 1     # odd: centred on a sample
+    weights = scipy.signal.windows.hann(taps + 2)[1:-1]       # no zero end points
+    total = scipy.signal.oaconvolve(x, weights, mode="same")
+    coverage = scipy.signal.oaconvolve(np.ones_like(x), weights, mode="same")
+    return x - total / coverage
 
 
 def raised_cosine_fades(n: int, fade_samples: int) -> np.ndarray:
@@ -157,8 +149,9 @@ def to_wav_samples(volts, *, full_scale_volts: float, normalize: bool = False,
 
     ``volts``: shape ``(n,)`` sampled at ``rate_hz`` (the audio rate, after
     :func:`decimate`).  Steps: remove DC (:func:`remove_dc`: the mean, then a
-    gentle zero-phase 5 Hz high-pass for slow drift); scale by ``1 / full_scale_volts`` so renders of variants keep
-    their relative loudness, or with ``normalize=True`` so the peak lands at
+    gentle zero-phase high-pass around 5 Hz for slow drift); scale by
+    ``1 / full_scale_volts`` so renders of variants keep their relative
+    loudness, or with ``normalize=True`` so the peak lands at
     ``NORMALIZE_PEAK_DBFS``; raised-cosine fades of ``fade_seconds`` at both ends;
     then clip to [-1, 1], counting every sample that was beyond (exactly +-1.0 is
     not clipped).

@@ -41,9 +41,17 @@ gets a guessed pitch:
   the whole record);
 - each chain spans at least ``MIN_PERIODS`` whole periods;
 - the single periods of a chain scatter by at most ``JITTER_LIMIT`` (relative
-  standard deviation);
+  standard deviation; ``GRID_JITTER_SAMPLES`` is added in quadrature for the
+  scatter that sampling a sharp edge causes by itself);
 - the mean frequency of the first third of a chain's periods and of the last third
   differ by at most ``DRIFT_LIMIT_CENTS``.
+
+Precision: on noise-free records the pitch error is far below 0.01 cent from 2 Hz
+to 5 kHz at 192 kHz.  With added noise it is set by the noise on the crossings:
+about ``noise / (edge slope * sqrt(fitted samples))`` per crossing, averaged over
+all crossings.  For example a 30 Hz sawtooth (the slowest edge tried) of 1 V
+amplitude with 5 mV RMS noise measures within 0.03 cent over 0.5 s; with 10 mV
+over only 0.2 s (6 periods) the error can reach 0.25 cent.
 
 Harmonics and THD (:func:`harmonic_levels`): the amplitude of harmonic ``h`` is the
 magnitude of the signal's projection onto a complex exponential at exactly
@@ -71,9 +79,10 @@ HYSTERESIS_FRACTION = 0.10
 #: average noise on slow edges (+-256 samples is +-1.3 ms at 192 kHz) while keeping
 #: the fitted stretch short compared with a period, so curvature does not bias it.
 MAX_FIT_HALF_SAMPLES = 256
-#: YIN acceptance threshold on the cumulative mean normalised difference: the value
-#: 0.1 is the one the YIN paper recommends; a steady tone with a signal-to-noise
-#: ratio above about 10 dB dips below it, white noise stays near 1.
+#: YIN acceptance threshold on the cumulative mean normalised difference (the YIN
+#: paper works with thresholds around 0.1, recalled from memory).  At the true
+#: period the function is about 1 / SNR, so a steady tone more than 10 dB above its
+#: noise dips below 0.1, while white noise stays near 1.
 YIN_THRESHOLD = 0.10
 #: YIN works on at least this many samples from the middle of the record (about
 #: 85 ms at 192 kHz): enough to average noise, cheap to transform.
@@ -103,9 +112,10 @@ JITTER_LIMIT = 0.01
 #: standard deviation of 1/sqrt(6) = 0.41 sample.  Added in quadrature to
 #: ``JITTER_LIMIT`` so square waves at high pitch still count as steady.
 GRID_JITTER_SAMPLES = 0.5
-#: Largest pitch change between the first and last third of the record (5 cents is
-#: well below what a listener notices as a drift, and well above the measurement
-#: scatter of a steady tone).
+#: Largest pitch change between the first and last third of the record: 5 cents is
+#: about the smallest pitch change a trained listener can pick out (a figure from
+#: memory), and well above the measurement scatter of a steady tone.  A chirp of
+#: 1 % (17 cents) over the record already fails it.
 DRIFT_LIMIT_CENTS = 5.0
 #: Number of harmonics reported (1 = fundamental).
 N_HARMONICS = 10
@@ -323,17 +333,25 @@ def pitch_or_reason(volts, rate_hz: float) -> Pitch | str:
     pick, miss = _partners(times, period)
     last_sample = x.size - 1
     needs_partner = times + period <= last_sample - END_MARGIN_PERIODS * period
-    if np.count_nonzero(needs_partner) < MIN_PERIODS:
+    if not np.any(needs_partner):
         return f"fewer than {MIN_PERIODS} whole periods"
     if np.any(miss[needs_partner] > MATCH_TOLERANCE * period):
         return "the crossings do not repeat period after period"
-    steps = pick[needs_partner] - np.flatnonzero(needs_partner)
+    checked = np.flatnonzero(needs_partner)
+    steps = pick[checked] - checked
     k = int(steps[0])
     if k < 1 or k > MAX_EVENTS_PER_PERIOD or np.any(steps != k):
         return "the pattern of crossings changes from period to period"
     if times[0] > EDGE_PERIODS * period or times[-1] < last_sample - EDGE_PERIODS * period:
         return "the tone does not last the whole record"
-    chains = [times[c::k] for c in range(k)]
+    # Keep the checked crossings, any later ones that still found their partner,
+    # and those partners; crossings after that are unverified.
+    last = int(checked[-1])
+    while (last + 1 + k < times.size and pick[last + 1] == last + 1 + k
+           and miss[last + 1] <= MATCH_TOLERANCE * period):
+        last += 1
+    aligned = times[:last + k + 1]
+    chains = [aligned[c::k] for c in range(k)]
     for chain in chains:
         reason = _chain_unsteadiness(chain)
         if reason is not None:

@@ -32,10 +32,12 @@ FULL_SCALE_VOLTS = 10.0
 #: Simulated seconds above which a progress bar is shown.
 PROGRESS_ABOVE_SECONDS = 3.0
 
-#: The waveform plot shows this many periods of the listening signal (or
-#: PLOT_MIN_SECONDS when there is no pitch), so it reads like a scope screen.
+#: The waveform plot shows this many periods of the listening signal (at least
+#: PLOT_MIN_SECONDS), so it reads like a scope screen; with no steady pitch it shows
+#: PLOT_NO_PITCH_SECONDS.
 PLOT_PERIODS = 4
 PLOT_MIN_SECONDS = 0.02
+PLOT_NO_PITCH_SECONDS = 0.05
 
 #: source: from memory, JEDEC JESD13-B (B-series CMOS): recommended operating range up to
 #: 15 V (3 V minimum for the guaranteed figures) and 18 V absolute maximum DC supply.
@@ -207,9 +209,9 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     wav = base.with_suffix(".wav")
     audio.write_wav(wav, samples, opts.rate_hz)
     png = Path(f"{base}.png")
-    span = PLOT_MIN_SECONDS
+    span = PLOT_NO_PITCH_SECONDS
     if listen_report["freq_hz"]:
-        span = max(span, PLOT_PERIODS / listen_report["freq_hz"])
+        span = max(PLOT_MIN_SECONDS, PLOT_PERIODS / listen_report["freq_hz"])
     shown = times < times[0] + span
     title = f"{patch.name}: {_pitch_text(listen_report)} at {listen_label(patch)}"
     subtitle = (f"supply {patch.supply.values['volts']:g} V, {supply['mean_ma']:.2f} mA mean; "

@@ -29,6 +29,9 @@ class StepOptions:
     event_seconds: how closely a flip instant is bracketed.
     jump_fraction: a change beyond this fraction of the supply within one step,
         unexplained by the predictor, marks a flip.
+    newton_fraction: Newton's method stops when its last update is below this fraction
+        of the step tolerance (its convergence is quadratic, so the error left is far
+        smaller; 0.3 gave the same pitch as 0.01 with a quarter fewer iterations).
     growth: step growth per recovery step after a flip.
     restart_seconds: first step after a flip; of the order of the regenerative time
         constant (stray capacitance over a gate's transconductance, 2 pF / 2 mS = 1 ns).
@@ -47,7 +50,7 @@ class StepOptions:
     growth: float = 3.0
     restart_seconds: float = 1e-9
     max_newton_iterations: int = 10
-    newton_fraction: float = 0.01
+    newton_fraction: float = 0.3
     chunk_seconds: float = 0.05
 
 

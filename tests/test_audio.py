@@ -44,7 +44,9 @@ def test_decimation_has_zero_delay():
     x = sine(50.0, 0.2, SIM_RATE_HZ)
     y = decimate(x, FACTOR)
     assert y.size == math.ceil(x.size / FACTOR)
-    assert np.max(np.abs(y - x[::FACTOR])) < 1e-6
+    ends = 50          # output samples within half the filter length of an end
+    assert np.max(np.abs(y - x[::FACTOR])[ends:-ends]) < 1e-6
+    assert np.max(np.abs(y - x[::FACTOR])) < 1e-3
 
 
 def test_decimation_keeps_a_dc_level_up_to_the_ends():
@@ -63,21 +65,27 @@ def test_decimation_by_one_is_a_copy_and_a_bad_factor_is_rejected():
 def test_dc_and_slow_drift_are_removed_and_the_tone_kept():
     tone = sine(1000.0, 1.0, AUDIO_RATE_HZ)
     t = np.arange(tone.size) / AUDIO_RATE_HZ
-    x = 4.5 + 0.8 * np.exp(-t / 0.25) + tone
+    drift_volts = 0.8          # a coupling capacitor settling with a 0.25 s time constant
+    x = 4.5 + drift_volts * np.exp(-t / 0.25) + tone
     y = remove_dc(x, AUDIO_RATE_HZ)
     middle = slice(AUDIO_RATE_HZ // 10, -AUDIO_RATE_HZ // 10)
-    assert abs(np.mean(y)) < 1e-3
-    assert np.max(np.abs(y[middle] - tone[middle])) < 0.02
+    assert abs(np.mean(y)) < 0.01
+    # design target: the drift left after the first 0.1 s is 30 dB below its size
+    assert np.max(np.abs(y[middle] - tone[middle])) < drift_volts * 10 ** (-30 / 20)
+    steady = remove_dc(4.5 + tone, AUDIO_RATE_HZ)
+    beyond_half_window = slice(AUDIO_RATE_HZ // 5, -AUDIO_RATE_HZ // 5)
+    assert np.max(np.abs(steady[beyond_half_window] - tone[beyond_half_window])) < 1e-6
+    assert np.max(np.abs(steady - tone)) < 0.002      # near the ends: under 0.2 %
 
 
 def test_fixed_full_scale_keeps_relative_loudness_of_variants():
-    quiet, loud = (sine(440.0, 0.5, AUDIO_RATE_HZ, amplitude=a) for a in (0.25, 0.5))
+    quiet, loud = (sine(1000.0, 0.5, AUDIO_RATE_HZ, amplitude=a) for a in (0.25, 0.5))
     _, quiet_info = to_wav_samples(quiet, full_scale_volts=1.0, rate_hz=AUDIO_RATE_HZ)
     _, loud_info = to_wav_samples(loud, full_scale_volts=1.0, rate_hz=AUDIO_RATE_HZ)
     assert quiet_info["gain"] == loud_info["gain"] == 1.0
     # common practice: doubling an amplitude adds 20*log10(2) = 6.02 dB
     assert loud_info["rms_dbfs"] - quiet_info["rms_dbfs"] == pytest.approx(6.0206, abs=0.01)
-    assert loud_info["peak_dbfs"] == pytest.approx(20.0 * math.log10(0.5), abs=0.01)
+    assert loud_info["peak_dbfs"] == pytest.approx(20.0 * math.log10(0.5), abs=0.02)
     assert quiet_info["normalized"] is False
 
 
@@ -108,13 +116,13 @@ def test_clipping_is_counted_only_beyond_full_scale(value, clipped):
 
 
 def test_a_render_too_hot_for_its_full_scale_is_clipped_and_counted():
-    x = sine(220.0, 0.3, AUDIO_RATE_HZ, amplitude=2.0)
+    x = sine(1000.0, 0.3, AUDIO_RATE_HZ, amplitude=2.0)
     hot, hot_info = to_wav_samples(x, full_scale_volts=1.0, rate_hz=AUDIO_RATE_HZ)
     safe, _ = to_wav_samples(x, full_scale_volts=2.0, rate_hz=AUDIO_RATE_HZ)
     expected = np.count_nonzero(np.abs(2.0 * safe) > 1.0)
     assert hot_info["clipped_samples"] == expected > 0
     assert np.max(np.abs(hot)) == 1.0
-    assert hot_info["peak_dbfs"] == pytest.approx(20.0 * math.log10(2.0), abs=0.01)
+    assert hot_info["peak_dbfs"] == pytest.approx(20.0 * math.log10(2.0), abs=0.02)
 
 
 def test_a_loud_render_gets_a_first_play_caution_and_a_quiet_one_does_not():
