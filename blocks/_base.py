@@ -39,6 +39,11 @@ Checklist for a new kind (see DEVELOPERS.md for a worked example):
 8. Optional ``resolve``: ``resolve(values, given) -> values`` to derive a choice from
    which parameters the patch set (the inverter picks its behavioural form when
    ``gain`` is given).
+9. Optional roles of terminals, read by the wiring checks (``sim/checks.py``):
+   ``outputs`` drive their net (a gate's output, a test source: they set its voltage),
+   ``inputs`` draw no DC current and need a DC path to a defined voltage (a gate's
+   input). A part with inputs, all of them on a rail, is a tied-off spare; its
+   outputs may be left open.
 """
 
 from __future__ import annotations
@@ -99,6 +104,9 @@ class Kind:
     resolve: Callable[[dict, set], dict] | None = None
     # parameter given in a patch shorthand: e.g. a resistor's ``value``
     main_param: str | None = None
+    # terminals that drive their nets / high-impedance inputs (see item 9 above)
+    outputs: tuple[str, ...] = ()
+    inputs: tuple[str, ...] = ()
 
     def param(self, name: str) -> Param:
         for p in self.params:

@@ -127,6 +127,7 @@ KIND = Kind(
     name="source",
     description="A test signal (sine, square, triangle or WAV file) between two nets.",
     terminals=(("between", 2),),
+    outputs=("between",),
     params=PARAMS,
     stamp=stamp,
     max_step=max_step,

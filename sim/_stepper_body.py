@@ -420,10 +420,12 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         cnt[K_STEPS] += 1
         if mode == MODE_RECOVER:
             hn = h * fac
-            if hn >= st[S_HGOAL]:
-                hn = st[S_HGOAL]
+            # Back to BDF2 once the step is back where it was, or as soon as the error
+            # controller rather than the recovery ramp limits the step (otherwise a
+            # tight tolerance would keep the whole run first-order).
+            if hn >= st[S_HGOAL] or (nh >= 1 and fac < growth):
+                hn = min(hn, st[S_HGOAL])
                 st[S_MODE] = MODE_NORMAL
-                st[S_NHIST] = 1.0
             st[S_H] = hn
         else:
             st[S_HNORMAL] = h

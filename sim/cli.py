@@ -50,6 +50,9 @@ def _parser() -> argparse.ArgumentParser:
 
     k = sub.add_parser("kinds", help="list the kinds of parts and their parameters")
     k.add_argument("kind", nargs="?", help="one kind to describe in full")
+    _add_check_parsers(sub)
+    _add_diff_parser(sub, d)
+    _add_play_parser(sub, d)
     return top
 
 
@@ -105,11 +108,161 @@ def _kinds(args) -> int:
     return 0
 
 
+def _add_diff_parser(sub, d: RenderOptions) -> None:
+    c = sub.add_parser("diff", help="compare two variants: pitch shift, level change, A-then-B WAV",
+                       description="Render two variants (two files, or one file with --a/--b "
+                                   "overrides) with the same options and write "
+                                   "DIR/<patch>.diff.json, .diff.png (A and B overlaid) and "
+                                   ".diff.wav (A, a short silence, then B at the same scale).")
+    c.add_argument("patch", metavar="PATCH", help="patch file (YAML): A, and B too if no PATCH_B")
+    c.add_argument("patch_b", metavar="PATCH_B", nargs="?", help="a second patch file for B")
+    c.add_argument("--a", action="append", default=[], metavar="REF.param=value", dest="a_sets",
+                   help="override for A only (repeatable)")
+    c.add_argument("--b", action="append", default=[], metavar="REF.param=value", dest="b_sets",
+                   help="override for B only, e.g. --b C1.value=18n (repeatable)")
+    c.add_argument("--seconds", type=float, default=d.seconds, metavar="S",
+                   help=f"seconds of audio to keep of each (default {d.seconds:g})")
+    c.add_argument("--settle", type=float, default=d.settle, metavar="S",
+                   help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
+    c.add_argument("--out", default="renders", metavar="DIR",
+                   help="output folder (default renders/)")
+    c.add_argument("--rate", type=int, default=d.rate_hz, metavar="HZ",
+                   help=f"WAV sample rate (default {d.rate_hz})")
+    c.add_argument("--full-scale", type=float, default=d.full_scale_volts, metavar="V",
+                   help=f"volts that make a full-scale sample, the same for A and B "
+                        f"(default {d.full_scale_volts:g})")
+    c.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
+                   help="accuracy of the compiled stepper (default: default)")
+    c.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _add_play_parser(sub, d: RenderOptions) -> None:
+    from sim.play import DEFAULT_VOLUME_DBFS
+
+    p = sub.add_parser("play", help="render in memory and play through the sound card (starts low)",
+                       description="Render PATCH in memory and play its listening signal through "
+                                   "the default output (needs the optional sounddevice library). "
+                                   "Playback peaks at --volume dBFS, low by default.")
+    p.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    p.add_argument("--seconds", type=float, default=d.seconds, metavar="S",
+                   help=f"seconds to play (default {d.seconds:g})")
+    p.add_argument("--set", action="append", default=[], metavar="REF.param=value",
+                   dest="overrides", help="override a part parameter, e.g. R3.value=47k (repeatable)")
+    p.add_argument("--volume", type=float, default=DEFAULT_VOLUME_DBFS, metavar="DBFS",
+                   help=f"peak level of playback in dBFS (default {DEFAULT_VOLUME_DBFS:g}: low on "
+                        "purpose; raise it step by step, headphones need extra care)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _diff(args) -> int:
+    from sim.diff import diff, load_pair
+
+    patch_a, patch_b = load_pair(args.patch, args.patch_b, args.a_sets, args.b_sets)
+    opts = RenderOptions(seconds=args.seconds, settle=args.settle, rate_hz=args.rate,
+                         full_scale_volts=args.full_scale, quality=args.quality,
+                         progress=not args.quiet)
+    result = diff(patch_a, patch_b, args.out, opts)
+    for warning in result.report["warnings"]:
+        print(f"warning: {warning}", file=sys.stderr)
+    for path in result.paths:
+        print(f"wrote {path}")
+    print(f"B vs A: {result.summary}")
+    print(CAUTION)
+    return 0
+
+
+def _play(args) -> int:
+    from sim.patch import load_patch
+    from sim.play import play
+
+    patch = load_patch(args.patch, args.overrides)
+    opts = RenderOptions(seconds=args.seconds, progress=not args.quiet)
+    played = play(patch, opts, args.volume, announce=print)
+    for warning in played.warnings:
+        print(f"warning: {warning}", file=sys.stderr)
+    return 0
+
+
+def _add_check_parsers(sub) -> None:
+    from sim.checks import CheckOptions
+
+    d = CheckOptions()
+    c = sub.add_parser("check", help="check the wiring rules before soldering (exit 1 on errors)",
+                       description="Check PATCH against the wiring rules (floating inputs, "
+                                   "outputs tied together or overloaded, the supply rating, "
+                                   "diodes without a limiting resistor...), print the findings "
+                                   "and write DIR/<patch>.check.json. Exit status 1 when any "
+                                   "error is found.")
+    c.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    c.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    c.add_argument("--set", action="append", default=[], metavar="REF.param=value",
+                   dest="overrides", help="override a part parameter, e.g. R3.value=47k (repeatable)")
+    c.add_argument("--simulate", action="store_true",
+                   help="also simulate and check output and clamp currents and the supply sag")
+    c.add_argument("--seconds", type=float, default=d.seconds, metavar="S",
+                   help=f"with --simulate: seconds checked after settling (default {d.seconds:g})")
+    c.add_argument("--settle", type=float, default=d.settle, metavar="S",
+                   help=f"with --simulate: seconds after power-on left out (default {d.settle:g})")
+    c.add_argument("--sag", type=float, default=d.sag_fraction, metavar="FRACTION",
+                   help=f"with --simulate: supply sag that counts, as a fraction of the battery "
+                        f"(default {d.sag_fraction:g})")
+    s = sub.add_parser("sheet", help="write the build sheet: packages, pins, wiring, parts list",
+                       description="Place PATCH's gates on hex inverter packages and write "
+                                   "DIR/<patch>.sheet.md (pins, wiring net by net, parts), "
+                                   "<patch>.bom.csv and <patch>.sheet.json.")
+    s.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    s.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    s.add_argument("--set", action="append", default=[], metavar="REF.param=value",
+                   dest="overrides", help="override a part parameter, e.g. R3.value=47k (repeatable)")
+
+
+def _check(args) -> int:
+    from sim.checks import CAUTIONS, CheckOptions, check_patch, write_report
+    from sim.patch import load_patch
+
+    patch = load_patch(args.patch, args.overrides, lone_nets_ok=True)
+    opts = CheckOptions(simulate=args.simulate, seconds=args.seconds, settle=args.settle,
+                        sag_fraction=args.sag)
+    report = check_patch(patch, opts)
+    for finding in report.findings:
+        print(finding.line())
+    print(f"{patch.name}: {len(report.errors)} error(s), {len(report.warnings)} warning(s)"
+          + ("" if report.simulated else " (static rules; --simulate adds the dynamic ones)"))
+    print(f"wrote {write_report(report, args.out)}")
+    print("Cautions:\n" + "\n".join(f"- {caution}" for caution in CAUTIONS))
+    return report.exit_status
+
+
+def _sheet(args) -> int:
+    from sim.checks import CAUTIONS
+    from sim.patch import load_patch
+    from sim.sheet import build_sheet, write_sheet
+
+    patch = load_patch(args.patch, args.overrides)
+    sheet = build_sheet(patch)
+    for name, package in sheet.packages.items():
+        print(f"{name}: " + ", ".join(f"{g.ref} (in {g.in_pin}, out {g.out_pin})"
+                                      for g in package.gates.values()))
+    for note in sheet.notes:
+        print(f"note: {note}")
+    for path in write_sheet(sheet, args.out, CAUTIONS):
+        print(f"wrote {path}")
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     args = _parser().parse_args(argv)
     try:
         if args.command == "render":
             return _render(args)
+        if args.command == "check":
+            return _check(args)
+        if args.command == "sheet":
+            return _sheet(args)
+        if args.command == "diff":
+            return _diff(args)
+        if args.command == "play":
+            return _play(args)
         return _kinds(args)
     except HalfrailError as error:
         print(f"halfrail: {error}", file=sys.stderr)

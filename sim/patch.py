@@ -115,6 +115,7 @@ class _Source:
     path: str
     base_dir: str
     root: MappingNode
+    lone_nets_ok: bool = False  # leave nets with one connection to sim.checks
 
 
 @dataclass
@@ -184,11 +185,25 @@ def parse_override(text: str) -> tuple[str, str, str]:
     return ref, param, raw
 
 
-def load_patch(path: str | os.PathLike, overrides: Sequence[str] = ()) -> Patch:
+def is_spare(part: Part) -> bool:
+    """True for a tied-off spare: a part with inputs, every one of them on a rail.
+
+    An unused gate of a package is written this way (``in: gnd``) so that its input
+    does not float; its output is then left open.
+    """
+    kind = REGISTRY[part.kind]
+    return bool(kind.inputs) and all(net in RAILS for key in kind.inputs
+                                     for net in part.nets[key])
+
+
+def load_patch(path: str | os.PathLike, overrides: Sequence[str] = (), *,
+               lone_nets_ok: bool = False) -> Patch:
     """Read, validate and resolve the patch at ``path``.
 
     ``overrides`` are ``"REF.param=value"`` strings (from ``--set``), applied after
     every value in the file. Raises PatchError naming the file, line and part.
+    ``lone_nets_ok`` accepts nets that only one terminal reaches (``halfrail check``
+    reports them among its findings instead of stopping at the first).
     """
     display = os.fspath(path)
     requests = []
@@ -199,7 +214,7 @@ def load_patch(path: str | os.PathLike, overrides: Sequence[str] = ()) -> Patch:
             raise PatchError(f"--set {text}: {error}", file=display) from error
         requests.append(_Override(f"--set {text}", ref, param, raw))
     source = _Source(display, os.path.abspath(display),
-                     os.path.dirname(os.path.abspath(display)), _read(display))
+                     os.path.dirname(os.path.abspath(display)), _read(display), lone_nets_ok)
     return _Builder(source, tuple(requests)).build()
 
 
@@ -448,7 +463,8 @@ class _Builder:
                                           f"{', '.join(refs)}{_suggest(override.ref, refs)})")
         probes = self.probes(top.get("probes"), parts)
         listen = self.listen(top, parts, probes)
-        self.check_connections(parts, set(probes) | set(listen.nets))
+        if not self.source.lone_nets_ok:
+            self.check_connections(parts, set(probes) | set(listen.nets))
         return Patch(name=name, path=self.source.path, base_dir=self.source.base_dir,
                      description=description, supply=supply, parts=parts, probes=probes,
                      listen=listen, models=self.models, _source=self.source,
@@ -794,7 +810,10 @@ class _Builder:
 
     # -- nets, probes, listen -----------------------------------------------------
     def check_connections(self, parts: dict[str, Part], named: set[str]) -> None:
-        """Each net other than the rails must reach two terminals (or be probed/listened)."""
+        """Each net other than the rails must reach two terminals (or be probed/listened).
+
+        A spare part's outputs may stay open (see :func:`is_spare`).
+        """
         uses: dict[str, list[tuple[Part, str]]] = {}
         for part in parts.values():
             for key, nets in part.nets.items():
@@ -804,6 +823,8 @@ class _Builder:
             if net in RAILS or net in named or len(where) > 1:
                 continue
             part, key = where[0]
+            if is_spare(part) and key in REGISTRY[part.kind].outputs:
+                continue
             raise self.error(f"net {net} connects only to {part.ref}.{key} — a typo? (a net "
                              "needs a second connection, or to be probed or listened to)",
                              part.lines.get(key, part.line), part.ref)

@@ -13,11 +13,14 @@ from pathlib import Path
 
 import numpy as np
 
-from sim import audio, measure, plots
+import blocks
+from sim import audio, kernel, measure, plots
 from sim.compile import Circuit, compile_patch
-from sim.errors import UsageError
+from sim.errors import PatchError, UsageError
 from sim.fileio import write_json
+from sim.units import format_quantity
 from sim.simulate import StepOptions, simulate, simulate_reference
+from sim.trace import DenseTrace, StepTrace
 
 #: Samples per audio sample in the simulated signal before the anti-alias filter and
 #: decimation. 4 x 48 kHz = 192 kHz puts the first alias of a square's harmonics far
@@ -44,6 +47,26 @@ PLOT_NO_PITCH_SECONDS = 0.05
 SUPPLY_RECOMMENDED_MAX_VOLTS = 15.0
 SUPPLY_ABSOLUTE_MAX_VOLTS = 18.0
 SUPPLY_MIN_VOLTS = 3.0
+
+#: Kinds whose current ``listen: REF`` plays, and the parameter (ohms) that turns that
+#: current into the WAV's volts: a speaker's coil current times its coil resistance, the
+#: volts a resistor of the speaker's ohms would show. So the fixed full scale applies as
+#: for a net, and two renders through the same speaker compare as the square root of
+#: their power.
+LISTEN_CURRENT_OHMS = {"speaker": "ohms"}
+
+#: A speaker whose mean current is more than this fraction of its RMS current (DC
+#: included) is flagged: the DC pushes the cone off centre and heats the coil without
+#: making sound. A tenth allows the small offset of a bridged pair whose two outputs are
+#: not quite symmetric, and catches a speaker hung from one output to a rail (about 0.7).
+SPEAKER_DC_FRACTION = 0.1
+
+#: source: JEDEC JESD13-B (B-series CMOS), minimum output drive at VDD = 10 V: 1.3 mA
+#: sunk with the output at 0.5 V, and sourced with it at 9.5 V (the figures
+#: tests/test_blocks.py checks the inverter against).
+GUARANTEED_DRIVE_VDD = 10.0
+GUARANTEED_DRIVE_DROP_VOLTS = 0.5
+GUARANTEED_DRIVE_AMPS = 1.3e-3
 
 SOLVERS = ("compiled", "reference")
 
@@ -110,11 +133,36 @@ def supply_warnings(volts: float) -> list[str]:
     return out
 
 
+def listened_current(patch) -> tuple[str, float] | None:
+    """For ``listen: REF``: the recorded unknown (``"SP1.current"``) and the ohms that scale it.
+
+    None when the patch listens to a net or a pair of nets. Raises PatchError naming the
+    file, line and part when the part's kind has no current to play (see
+    LISTEN_CURRENT_OHMS).
+    """
+    ref = patch.listen.part
+    if ref is None:
+        return None
+    part = patch.parts[ref]
+    if part.kind not in LISTEN_CURRENT_OHMS:
+        raise PatchError(f"listen: {ref} is a {part.kind}; the current of a "
+                         f"{' or '.join(LISTEN_CURRENT_OHMS)} can be listened to, not of a "
+                         f"{part.kind}: listen to a net, [plus, minus], or the speaker it drives",
+                         file=patch.path, line=patch.listen.line, part=ref)
+    branch = blocks.REGISTRY[part.kind].branches[0]
+    return f"{ref}.{branch}", float(part.values[LISTEN_CURRENT_OHMS[part.kind]])
+
+
 def listen_signal(patch, circuit: Circuit, values: dict[str, np.ndarray]) -> np.ndarray:
+    """The listening signal in volts, shape (m,), from the recorded ``values`` (each (m,)).
+
+    A net, the difference of two nets, or a speaker's current times its ohms.
+    """
+    current = listened_current(patch)
+    if current is not None:
+        name, ohms = current
+        return values[name] * ohms
     nets = patch.listen.nets
-    if patch.listen.part is not None:
-        raise UsageError(f"listening to the current of {patch.listen.part} is not supported yet; "
-                         "listen to a net or a pair of nets")
     sig = values[nets[0]].copy()
     if len(nets) == 2:
         sig -= values[nets[1]]
@@ -122,7 +170,192 @@ def listen_signal(patch, circuit: Circuit, values: dict[str, np.ndarray]) -> np.
 
 
 def listen_label(patch) -> str:
+    current = listened_current(patch)
+    if current is not None:
+        return f"{patch.listen.part} current x {format_quantity(current[1], 'ohm')}"
     return patch.listen.nets[0] if len(patch.listen.nets) == 1 else " - ".join(patch.listen.nets)
+
+
+# ---------------------------------------------------------------------------------
+# loads: speakers and the gates' outputs
+
+#: The kind whose parts' output currents are reported, and the kind whose power is.
+GATE_KIND = "inverter"
+SPEAKER_KIND = "speaker"
+
+#: The ground net: 0 V by definition, never a recorded unknown.
+GROUND = "gnd"
+
+#: Samples evaluated per batch when computing output currents (bounds the memory used:
+#: a few MB for a package of gates).
+OUTPUT_BATCH_SAMPLES = 8192
+
+
+def load_record_names(patch) -> list[str]:
+    """Nets and currents a render records for the load report, besides probes and
+    listening nets: each speaker's nets and coil current, each gate's input and output
+    nets (``gnd`` excluded: it is 0 V and never an unknown)."""
+    names = []
+    for ref, part in patch.parts.items():
+        if part.kind == SPEAKER_KIND:
+            branch = blocks.REGISTRY[SPEAKER_KIND].branches[0]
+            names += [*part.nets["between"], f"{ref}.{branch}"]
+        elif part.kind == GATE_KIND:
+            names += [part.nets["in"][0], part.nets["out"][0]]
+    return [name for name in names if name != GROUND]
+
+
+def speaker_report(patch, values: dict[str, np.ndarray], warnings: list[str]) -> dict:
+    """``{REF: {"power_mw", "dc_ma"}}`` for every speaker; appends a warning for DC through one.
+
+    power_mw: mean electrical power into the speaker, mean(v i) over the record (the
+    coil's reactive power averages out; what is left heats the coil or moves the cone).
+    dc_ma: mean coil current. ``values`` maps recorded names (and ``gnd``) to (m,) arrays.
+    """
+    out = {}
+    branch = blocks.REGISTRY[SPEAKER_KIND].branches[0]
+    for ref, part in patch.parts.items():
+        if part.kind != SPEAKER_KIND:
+            continue
+        plus, minus = part.nets["between"]
+        amps = values[f"{ref}.{branch}"]
+        volts = values[plus] - values[minus]
+        dc_amps = float(np.mean(amps))
+        rms_amps = float(np.sqrt(np.mean(amps * amps)))
+        out[ref] = {"power_mw": float(np.mean(volts * amps) * 1e3), "dc_ma": dc_amps * 1e3}
+        if rms_amps > 0.0 and abs(dc_amps) > SPEAKER_DC_FRACTION * rms_amps:
+            warnings.append(
+                f"speaker {ref} carries a DC current of {dc_amps * 1e3:.2f} mA "
+                f"({abs(dc_amps) / rms_amps:.0%} of its RMS current): it pushes the cone off "
+                "centre and heats the coil without sound; put a capacitor in series or drive "
+                "the speaker bridged between two outputs in antiphase")
+    return out
+
+
+def gate_output_amps(rows: np.ndarray, vin_volts: np.ndarray, vout_volts: np.ndarray,
+                     vdd_volts: np.ndarray) -> np.ndarray:
+    """Current (A) each gate's output delivers into its net, positive when sourcing.
+
+    rows: (g, cols) the gates' kernel parameter rows (``Kind.row`` plus the two data
+    columns); vin_volts, vout_volts: (m, g); vdd_volts: (m,), gnd at 0 V. Evaluated with
+    the gates' own equations through the compiled kernel. Returns (m, g).
+    """
+    k = kernel.load()
+    order = kernel.kind_order()
+    gates, cols = rows.shape
+    size = 2 + 2 * gates  # gnd, vdd, then (in, out) of each gate
+    tab = np.zeros((len(order), kernel.TAB_SIZE), np.int64)
+    tab[order.index(GATE_KIND)] = (0, cols, 0, 4, gates, 0, 0)
+    pf = np.ascontiguousarray(rows, dtype=np.float64).ravel()
+    nf = np.array([[2 + 2 * j, 3 + 2 * j, 1, 0] for j in range(gates)], np.int64).ravel()
+    df = np.zeros(1)
+    G = np.zeros((size, size))
+    count = vin_volts.shape[0]
+    out = np.empty((count, gates))
+    for start in range(0, count, OUTPUT_BATCH_SAMPLES):
+        stop = min(count, start + OUTPUT_BATCH_SAMPLES)
+        x = np.zeros((stop - start, size))
+        x[:, 1] = vdd_volts[start:stop]
+        x[:, 2::2] = vin_volts[start:stop]
+        x[:, 3::2] = vout_volts[start:stop]
+        f = np.zeros_like(x)
+        for s in range(stop - start):
+            k.evaluate(x[s], 0.0, pf, nf, tab, df, f[s], G)
+        out[start:stop] = -f[:, 3::2]  # f is the current flowing into the gate at out
+    return out
+
+
+def gate_limit_amps(rows: np.ndarray, vdd_volts: float) -> np.ndarray:
+    """Output current (A) each gate can be counted on to give at supply ``vdd_volts``, (g,).
+
+    The gate's short-circuit current (input at one rail, output held at the other) from
+    its own equations, scaled down by how far the model's drive at the JESD13-B test point
+    exceeds the standard's guaranteed minimum (GUARANTEED_DRIVE_*): what a chip that just
+    meets the standard would give. The lesser of sinking and sourcing.
+    """
+    gates = rows.shape[0]
+    test, drop = GUARANTEED_DRIVE_VDD, GUARANTEED_DRIVE_DROP_VOLTS
+    # states: sink short, source short, sink at the test point, source at the test point
+    vin = np.array([vdd_volts, 0.0, test, 0.0])
+    vout = np.array([vdd_volts, 0.0, drop, test - drop])
+    vdd = np.array([vdd_volts, vdd_volts, test, test])
+    amps = np.abs(gate_output_amps(rows, np.repeat(vin[:, None], gates, axis=1),
+                                   np.repeat(vout[:, None], gates, axis=1), vdd))
+    sink = amps[0] * np.minimum(1.0, GUARANTEED_DRIVE_AMPS / amps[2])
+    source = amps[1] * np.minimum(1.0, GUARANTEED_DRIVE_AMPS / amps[3])
+    return np.minimum(sink, source)
+
+
+def _gates(patch) -> list:
+    return [(ref, part) for ref, part in patch.parts.items() if part.kind == GATE_KIND]
+
+
+def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
+    """A trace of each gate's output current (A, sourcing positive), named by gate.
+
+    Read it like any trace: ``uniform()`` gives the current averaged over each sample
+    interval. The currents are computed from the recorded voltages at the solver's own
+    points (each a solution of the circuit's equations), so the average is the mean
+    current over the interval: a nanosecond edge charging the next gate's input adds its
+    charge, not the brief peak it takes. ``t_from`` (s): the first grid time that will be
+    read at ``rate_hz``; earlier points are skipped. None when the patch has no gates.
+    """
+    gates = _gates(patch)
+    if not gates:
+        return None
+    kind = blocks.REGISTRY[GATE_KIND]
+    rows = np.array([kind.row(part.values) + [0.0, 0.0] for _, part in gates])
+    nets = ([part.nets["in"][0] for _, part in gates], [part.nets["out"][0] for _, part in gates])
+
+    def amps(columns):  # columns: name -> (m,) volts
+        zero = np.zeros_like(columns["vdd"])
+        pick = [np.column_stack([columns.get(n, zero) for n in group]) for group in nets]
+        return gate_output_amps(rows, pick[0], pick[1], columns["vdd"])
+
+    names = [ref for ref, _ in gates]
+    needed = [n for n in dict.fromkeys(["vdd", *nets[0], *nets[1]]) if n != GROUND]
+    if isinstance(trace, StepTrace):
+        first = max(0, int(np.searchsorted(trace.times, t_from - 1.0 / rate_hz)) - 3)
+        columns = {n: trace.values[first:, trace.column(n)] for n in needed}
+        return StepTrace(names=names, times=trace.times[first:], values=amps(columns),
+                         order=trace.order[first:], solver=trace.solver)
+    rows_in = [trace.rows[trace.column(n)] for n in needed]
+
+    def sol(t_seconds):
+        y = trace.sol(t_seconds)[rows_in, :]
+        return amps(dict(zip(needed, y))).T
+
+    return DenseTrace(names=names, sol=sol, rows=list(range(len(names))), t_end=trace.t_end,
+                      solver=trace.solver)
+
+
+def output_report(patch, gate_amps: np.ndarray | None, vdd_volts: np.ndarray,
+                  warnings: list[str]) -> dict:
+    """``{REF: {"peak_ma", "limit_ma"}}`` for every gate; warns when a peak passes its limit.
+
+    gate_amps: (m, g) interval-averaged output currents, gates in patch order (from
+    :func:`gate_current_trace`); vdd_volts: (m,). peak_ma: the largest current sourced or
+    sunk; limit_ma: :func:`gate_limit_amps` at the lowest supply voltage of the record.
+    """
+    gates = _gates(patch)
+    if not gates:
+        return {}
+    kind = blocks.REGISTRY[GATE_KIND]
+    rows = np.array([kind.row(part.values) + [0.0, 0.0] for _, part in gates])
+    peaks = np.max(np.abs(gate_amps), axis=0)
+    vdd_low = float(np.min(vdd_volts))
+    limits = gate_limit_amps(rows, vdd_low)
+    out = {}
+    for (ref, _), peak, limit in zip(gates, peaks, limits):
+        out[ref] = {"peak_ma": float(peak * 1e3), "limit_ma": float(limit * 1e3)}
+        if peak > limit:
+            warnings.append(
+                f"{ref} is asked for more current than it can give: its output peaks at "
+                f"{peak * 1e3:.1f} mA, above the {limit * 1e3:.1f} mA a gate can be counted on "
+                f"for at {vdd_low:.2f} V (its short-circuit current scaled to the JESD13-B "
+                "minimum drive); the level will differ from chip to chip: use a larger load "
+                "resistance, a step-down transformer, or gates in parallel")
+    return out
 
 
 def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label: str = ""):
@@ -161,11 +394,17 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     opts.check()
     from blocks.supply import supply_amps
 
-    record = list(dict.fromkeys([*patch.probes, *patch.listen.nets, "vdd"]))
+    current = listened_current(patch)  # a wrong listen: fails before the simulation
+    record = list(dict.fromkeys([*patch.probes, *patch.listen.nets, "vdd",
+                                 *([current[0]] if current else []), *load_record_names(patch)]))
     circuit, trace = simulate_patch(patch, opts, record)
     fine_rate = opts.rate_hz * OVERSAMPLE
     times, y = trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)
     values = {name: y[:, j] for j, name in enumerate(record)}
+    values[GROUND] = np.zeros_like(times)
+    gate_trace = gate_current_trace(patch, trace, opts.settle, fine_rate)
+    gate_amps = (gate_trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)[1]
+                 if gate_trace is not None else None)
     warnings = supply_warnings(float(patch.supply.values["volts"]))
 
     probes = {net: measure.measure_signal(values[net], fine_rate) for net in patch.probes}
@@ -174,6 +413,8 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     amps = supply_amps(times, values["vdd"], patch.supply.values)
     supply = {"mean_ma": float(np.mean(amps) * 1e3), "peak_ma": float(np.max(amps) * 1e3),
               "volts_min": float(np.min(values["vdd"]))}
+    speakers = speaker_report(patch, values, warnings)
+    outputs = output_report(patch, gate_amps, values["vdd"], warnings)
 
     listen_audio = audio.decimate(listen_fine, OVERSAMPLE)
     samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
@@ -192,7 +433,10 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
         "sample_rate": opts.rate_hz,
         "probes": probes,
         "listen": listen_report,
+        "listen_label": listen_label(patch),
         "supply": supply,
+        "speakers": speakers,
+        "outputs": outputs,
         "warnings": warnings,
         "audio": {"full_scale_volts": opts.full_scale_volts, **info},
         "settle_seconds": opts.settle,

@@ -15,6 +15,7 @@ from scipy.optimize import brentq
 
 import blocks
 from blocks import diode, inverter, pot, source, supply
+from blocks._base import THERMAL_VOLTS
 
 #: Values for parameters a patch must give (no default), by unit, so that every kind
 #: of part can be stamped on its own.
@@ -115,18 +116,21 @@ def test_default_inverter_sources_at_least_the_jedec_minimum_current(vdd, drop, 
 
 #: Finite-difference step, V (or A for a branch current).
 FD_STEP = 1e-4
-#: Relative agreement asked of G against central differences. The truncation error of a
-#: central difference is h^2/6 |f'''|; the sharpest curve in any stamp is a junction's
-#: exponential with n VT >= 25.9 mV, whose relative error is then h^2 / (6 (n VT)^2) =
-#: 2.5e-6. 1e-5 sits above that and far below the error of any wrong or missing term.
-#: (A smaller step would allow a tighter bound, but the behavioural inverter's supply
-#: current idle * (1 - tanh^2) carries a rounding noise of eps * idle_amps, which a
-#: smaller step amplifies past the input clamps' 1 nS entries.)
-JACOBIAN_RTOL = 1e-5
-#: Rounding error of a central difference in row i is about eps T_i / h, where T_i is the
-#: size of the currents summed into that row (bounded by |f_i| + sum_j |G_ij x_j|); this
-#: many times that is allowed as an absolute error (it matters only for entries near 0).
+#: Relative agreement asked of G against the extrapolated central differences. A central
+#: difference D(h) errs by h^2/6 |f'''|; Richardson's extrapolation (4 D(h/2) - D(h)) / 3
+#: removes that term and leaves O(h^4). The sharpest curves in any stamp are a junction's
+#: exponential (n VT >= 25.9 mV) and the behavioural inverter's smooth split of its output
+#: current between the rails (1 uA through 500 ohm: 0.5 mV wide); with h = 0.1 mV the
+#: remainder is below 1e-7 of the entry, so 1e-6 catches any wrong or missing term.
+JACOBIAN_RTOL = 1e-6
+#: Rounding error of a difference in row i is about eps T_i / h, where T_i is the size of
+#: the currents summed into that row (bounded by |f_i| + sum_j |G_ij x_j|); this many
+#: times that is allowed as an absolute error.
 ROUNDING_MARGIN = 100.0
+#: Absolute floor, S: conductances below a picosiemens (1 pA per volt) move no node of a
+#: patch and drown in the rounding of terms like the behavioural inverter's supply
+#: current idle * (1 - tanh^2), computed to eps * idle_amps.
+JACOBIAN_FLOOR_SIEMENS = 1e-12
 
 
 def random_state(rng, stamped: Stamped, case: str, values: dict) -> np.ndarray:
@@ -145,7 +149,7 @@ def random_state(rng, stamped: Stamped, case: str, values: dict) -> np.ndarray:
         cathode = rng.uniform(-1.0, 1.0)
         if case == "forward":
             amps = 10.0 ** rng.uniform(-6.0, -1.0)   # 1 uA to 100 mA
-            n_vt = values["emission"] * blocks._base.THERMAL_VOLTS
+            n_vt = values["emission"] * THERMAL_VOLTS
             drop = n_vt * math.log1p(amps / values["saturation_amps"])
         else:
             drop = -rng.uniform(0.1, 10.0)
@@ -165,7 +169,8 @@ def jacobian_cases():
     cases = [pytest.param(name, {}, None, "any", 0.0, id=f"{name}-defaults")
              for name in sorted(blocks.REGISTRY)]
     cases += [
-        pytest.param("inverter", {"form": "behavioural"}, None, "any", 0.0, id="inverter-behavioural"),
+        pytest.param("inverter", {"form": "behavioural"}, None, "any", 0.0,
+                     id="inverter-behavioural"),
         pytest.param("supply", {}, None, "any", 0.4e-3, id="supply-during-power-on-ramp"),
     ]
     for model in diode.KIND.models:
@@ -181,6 +186,19 @@ def jacobian_cases():
     return cases
 
 
+def central_differences(stamped: Stamped, x: np.ndarray, step: float) -> np.ndarray:
+    """df/dx by central differences, shape (size, size); column 0 (ground) left at 0."""
+    numeric = np.zeros((stamped.size, stamped.size))
+    for j in range(1, stamped.size):
+        up, down = x.copy(), x.copy()
+        up[j] += step
+        down[j] -= step
+        f_up, _ = stamped.evaluate(up)
+        f_down, _ = stamped.evaluate(down)
+        numeric[:, j] = (f_up - f_down) / (up[j] - down[j])  # the step as stored
+    return numeric
+
+
 @pytest.mark.parametrize("seed", [1, 2, 3])
 @pytest.mark.parametrize(("kind_name", "given", "model", "case", "t_seconds"), jacobian_cases())
 def test_analytic_jacobian_matches_central_differences(kind_name, given, model, case, t_seconds,
@@ -189,18 +207,13 @@ def test_analytic_jacobian_matches_central_differences(kind_name, given, model, 
     stamped = Stamped(kind_name, values, t_seconds)
     x = random_state(np.random.default_rng(seed), stamped, case, values)
     f, G = stamped.evaluate(x)
-    numeric = np.zeros_like(G)
-    for j in range(1, stamped.size):
-        up, down = x.copy(), x.copy()
-        up[j] += FD_STEP
-        down[j] -= FD_STEP
-        f_up, _ = stamped.evaluate(up)
-        f_down, _ = stamped.evaluate(down)
-        numeric[:, j] = (f_up - f_down) / (up[j] - down[j])  # the step as stored
+    coarse = central_differences(stamped, x, FD_STEP)
+    fine = central_differences(stamped, x, 0.5 * FD_STEP)
+    numeric = (4.0 * fine - coarse) / 3.0
     # size of the terms summed into each row (their rounding is what a difference sees)
     term_amps = np.abs(f) + np.abs(G) @ np.abs(x)
-    rounding = ROUNDING_MARGIN * np.finfo(float).eps * term_amps / FD_STEP
-    allowed = JACOBIAN_RTOL * np.abs(G) + rounding[:, None]
+    rounding = ROUNDING_MARGIN * np.finfo(float).eps * term_amps / (0.5 * FD_STEP)
+    allowed = JACOBIAN_RTOL * np.abs(G) + rounding[:, None] + JACOBIAN_FLOOR_SIEMENS
     wrong = np.argwhere(np.abs(G - numeric)[:, 1:] > allowed[:, 1:])
     assert wrong.size == 0, [(stamped.local[i - 1] if i else "ground", stamped.local[j],
                               G[i, j + 1], numeric[i, j + 1]) for i, j in wrong]
