@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numba
 
+from blocks._stamps import branch, conductance
 from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column
 from blocks._junction import junction
 
@@ -35,21 +36,9 @@ L_A, L_K, L_J = 0, 1, 2
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, c, j = N[k, L_A], N[k, L_K], N[k, L_J]
-        g = 1.0 / P[k, C_RS]
-        i = g * (x[a] - x[j])
-        f[a] += i
-        f[j] -= i
-        G[a, a] += g
-        G[a, j] -= g
-        G[j, a] -= g
-        G[j, j] += g
+        conductance(f, G, x, a, j, 1.0 / P[k, C_RS])
         i, gd = junction(x[j] - x[c], P[k, C_IS], P[k, C_N] * THERMAL_VOLTS)
-        f[j] += i
-        f[c] -= i
-        G[j, j] += gd
-        G[j, c] -= gd
-        G[c, j] -= gd
-        G[c, c] += gd
+        branch(f, G, j, c, i, gd)
 
 
 def mass(values):

@@ -32,6 +32,7 @@ import math
 
 import numba
 
+from blocks._stamps import branch
 from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column
 from blocks._junction import channel, junction
 
@@ -172,22 +173,10 @@ def _stamp_clamps(x, P, k, nd, f, G):
     n_vt = THERMAL_VOLTS
     isat = P[k, C_CLAMP]
     i_in, vdd, gnd = nd[0], nd[2], nd[3]
-    # input -> vdd
-    i, g = junction(x[i_in] - x[vdd], isat, n_vt)
-    f[i_in] += i
-    f[vdd] -= i
-    G[i_in, i_in] += g
-    G[i_in, vdd] -= g
-    G[vdd, i_in] -= g
-    G[vdd, vdd] += g
-    # gnd -> input
-    i, g = junction(x[gnd] - x[i_in], isat, n_vt)
-    f[gnd] += i
-    f[i_in] -= i
-    G[gnd, gnd] += g
-    G[gnd, i_in] -= g
-    G[i_in, gnd] -= g
-    G[i_in, i_in] += g
+    i, g = junction(x[i_in] - x[vdd], isat, n_vt)  # input -> vdd
+    branch(f, G, i_in, vdd, i, g)
+    i, g = junction(x[gnd] - x[i_in], isat, n_vt)  # gnd -> input
+    branch(f, G, gnd, i_in, i, g)
 
 
 @numba.njit

@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import numba
 
+from blocks._stamps import conductance
 from blocks._base import Kind, Param, column
 
 TAPERS = ("lin", "log", "reverse-log")
@@ -58,25 +59,14 @@ def track_fraction(position, taper):
 
 
 @numba.njit
-def _conductance(f, G, a, b, g, x):
-    i = g * (x[a] - x[b])
-    f[a] += i
-    f[b] -= i
-    G[a, a] += g
-    G[a, b] -= g
-    G[b, a] -= g
-    G[b, b] += g
-
-
-@numba.njit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, b, w = N[k, 0], N[k, 1], N[k, 2]
         total = P[k, C_VALUE]
         end = P[k, C_END]
         frac = end + (1.0 - 2.0 * end) * track_fraction(P[k, C_POS], P[k, C_TAPER])
-        _conductance(f, G, a, w, 1.0 / (total * frac), x)
-        _conductance(f, G, w, b, 1.0 / (total * (1.0 - frac)), x)
+        conductance(f, G, x, a, w, 1.0 / (total * frac))
+        conductance(f, G, x, w, b, 1.0 / (total * (1.0 - frac)))
 
 
 KIND = Kind(

@@ -4,21 +4,14 @@ from __future__ import annotations
 
 import numba
 
+from blocks._stamps import conductance
 from blocks._base import Kind, Param
 
 
 @numba.njit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
-        a, b = N[k, 0], N[k, 1]
-        g = 1.0 / P[k, 0]
-        i = g * (x[a] - x[b])
-        f[a] += i
-        f[b] -= i
-        G[a, a] += g
-        G[a, b] -= g
-        G[b, a] -= g
-        G[b, b] += g
+        conductance(f, G, x, N[k, 0], N[k, 1], 1.0 / P[k, 0])
 
 
 KIND = Kind(

@@ -14,6 +14,7 @@ import math
 import numba
 import numpy as np
 
+from blocks._stamps import branch
 from blocks._base import Kind, Param, column
 
 WAVES = ("sine", "square", "triangle", "wav")
@@ -88,14 +89,8 @@ def stamp(x, t, P, N, D, f, G):
         p, m = N[k, 0], N[k, 1]
         g = 1.0 / P[k, C_OHMS]
         v = waveform_volts(t, P, k, D)
-        # Norton form: current pushed into p is g (v - (x_p - x_m)).
-        i = g * (v - (x[p] - x[m]))
-        f[p] -= i
-        f[m] += i
-        G[p, p] += g
-        G[p, m] -= g
-        G[m, p] -= g
-        G[m, m] += g
+        # Norton form: current from p to m through the source is g ((x_p - x_m) - v).
+        branch(f, G, p, m, g * ((x[p] - x[m]) - v), g)
 
 
 def max_step(values, blob):

@@ -38,6 +38,8 @@ import math
 import numba
 
 from blocks._base import Kind, Param, capacitance_entries, column
+from blocks._stamps import conductance
+from blocks.transformer import inductive_branch
 
 PARAMS = (
     Param("ohms", "ohm", 8.0,
@@ -94,44 +96,14 @@ def motional_elements(ohms: float, resonance_hz: float, q_mechanical: float,
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, b, m, ic, il = N[k, L_A], N[k, L_B], N[k, L_M], N[k, L_I], N[k, L_IC]
-        re = P[k, C_OHMS]
-        i = x[ic]
         resonant = P[k, C_FS] > 0.0
-        end = m if resonant else b  # the coil runs from a to the motion node, or to b
-        # coil current leaves a and arrives at its far end
-        f[a] += i
-        f[end] -= i
-        G[a, ic] += 1.0
-        G[end, ic] -= 1.0
-        # coil row: Le di/dt + Re i - (v_a - v_end) = 0
-        f[ic] += re * i - (x[a] - x[end])
-        G[ic, ic] += re
-        G[ic, a] -= 1.0
-        G[ic, end] += 1.0
+        # the coil runs from a to the motion node, or straight to b without the resonance
+        inductive_branch(x, f, G, a, m if resonant else b, ic, P[k, C_OHMS])
         if resonant:
-            g = P[k, C_QES] / (re * P[k, C_QMS])  # 1 / R_es
-            j = x[il]
-            v = x[m] - x[b]
-            f[m] += g * v + j
-            f[b] -= g * v + j
-            G[m, m] += g
-            G[m, b] -= g
-            G[b, m] -= g
-            G[b, b] += g
-            G[m, il] += 1.0
-            G[b, il] -= 1.0
-            # compliance row: L_ces dj/dt - (v_m - v_b) = 0
-            f[il] -= v
-            G[il, m] -= 1.0
-            G[il, b] += 1.0
+            conductance(f, G, x, m, b, P[k, C_QES] / (P[k, C_OHMS] * P[k, C_QMS]))  # 1 / R_es
+            inductive_branch(x, f, G, m, b, il, 0.0)  # the compliance L_ces
         else:
-            v = x[m] - x[b]
-            f[m] += IDLE_NODE_SIEMENS * v
-            f[b] -= IDLE_NODE_SIEMENS * v
-            G[m, m] += IDLE_NODE_SIEMENS
-            G[m, b] -= IDLE_NODE_SIEMENS
-            G[b, m] -= IDLE_NODE_SIEMENS
-            G[b, b] += IDLE_NODE_SIEMENS
+            conductance(f, G, x, m, b, IDLE_NODE_SIEMENS)
             f[il] += IDLE_BRANCH_OHMS * x[il]
             G[il, il] += IDLE_BRANCH_OHMS
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
+from blocks._stamps import branch
 from blocks._base import Kind, Param
 
 COL_VOLTS, COL_OHMS, COL_RAMP = 0, 1, 2
@@ -32,14 +33,9 @@ def stamp(x, t, P, N, D, f, G):
         vdd, gnd = N[k, 0], N[k, 1]
         g = 1.0 / P[k, COL_OHMS]
         e = emf_volts(t, P[k, COL_VOLTS], P[k, COL_RAMP])
-        # Current delivered into vdd by the battery: (E - (v_vdd - v_gnd)) / R.
-        i = g * (e - (x[vdd] - x[gnd]))
-        f[vdd] -= i
-        f[gnd] += i
-        G[vdd, vdd] += g
-        G[vdd, gnd] -= g
-        G[gnd, vdd] -= g
-        G[gnd, gnd] += g
+        # The battery delivers (E - (v_vdd - v_gnd)) / R into vdd, i.e. a current
+        # g ((v_vdd - v_gnd) - E) flows from vdd to gnd through it.
+        branch(f, G, vdd, gnd, g * ((x[vdd] - x[gnd]) - e), g)
 
 
 @numba.njit

@@ -61,13 +61,15 @@ RULES: dict[str, Rule] = {rule.code: rule for rule in (
     Rule("package-full", ERROR, "a hex inverter package has six gates"),
     Rule("floating-input", ERROR, "a gate input needs a DC path to a defined voltage; behind "
          "a coupling capacitor that takes a bias resistor"),
-    Rule("outputs-tied", ERROR, "two outputs on one net fight whenever they disagree"),
+    Rule("outputs-tied", ERROR, "two outputs on one net fight whenever they disagree (gates "
+         "sharing their input too are paralleled for drive, and agree)"),
     Rule("output-on-rail", ERROR, "a gate output tied to a rail is a short whenever it drives "
          "the other way"),
     Rule("heavy-load", WARNING, "an output loaded below what its output resistance can drive "
          "sags and draws heavy current (an error when it loses more than half its swing)"),
-    Rule("speaker-dc", WARNING, "a speaker with DC paths on both sides passes a DC current "
-         "that heats the coil and pushes the cone off centre"),
+    Rule("speaker-dc", WARNING, "a speaker with DC paths to two different driven nets passes "
+         "a DC current that heats the coil and pushes the cone off centre (bridged between "
+         "two outputs, --simulate measures it)"),
     Rule("supply-over-max", ERROR, "the supply is above the B-series absolute maximum"),
     Rule("supply-over-rated", WARNING, "the supply is above the highest voltage B-series "
          "parts are characterised at"),
@@ -80,7 +82,8 @@ RULES: dict[str, Rule] = {rule.code: rule for rule in (
     Rule("lone-net", ERROR, "a net that only one part touches is likely a typo (a warning "
          "when it is probed)"),
     Rule("output-current", WARNING, "a gate output carried a sustained current that sags it "
-         "(an error above the per-pin maximum)", dynamic=True),
+         "(an error when its output transistor dissipates more than it is rated for)",
+         dynamic=True),
     Rule("input-clamp", WARNING, "a gate's input protection diodes conducted: the input went "
          "past a rail (an error above the per-pin maximum)", dynamic=True),
     Rule("supply-sag", WARNING, "the supply sagged under load by more than the set fraction",
@@ -135,9 +138,14 @@ SWING_LOSS_ERROR = 0.50
 #: diode takes more, but nothing here needs more than that.
 DIODE_LIMIT_AMPS = 20e-3
 
-#: Absolute maximum DC current into any one input or output pin, A.
-#: source: from memory, B-series CMOS datasheets (CD4000B family): +-10 mA DC per pin.
-PIN_MAX_AMPS = 10e-3
+#: Absolute maximum DC current into any one input, A.
+#: source: from memory, B-series CMOS datasheets (CD4000B family): +-10 mA DC per input.
+INPUT_MAX_AMPS = 10e-3
+
+#: Absolute maximum dissipation of one output transistor, W.
+#: source: from memory, B-series CMOS datasheets (CD4000B family): 100 mW per output
+#: transistor over the full temperature range.
+OUTPUT_TRANSISTOR_MAX_WATTS = 0.1
 
 #: Current through an input's protection diodes that counts as conducting, A: ten
 #: thousand times their leakage floor (1 nA at 1 V), the current of an input driven a
@@ -534,7 +542,9 @@ def _connection_findings(patch: Patch) -> list[Finding]:
                     "way it shorts the supply through itself; connect the output to its own "
                     "net (a spare gate's output stays open)")))
             continue
-        if gate_outputs and len(drivers) > 1:
+        inputs_of = {tuple(_terminals(p, REGISTRY[p.kind].inputs)) for p, _ in drivers}
+        paralleled = len(gate_outputs) == len(drivers) and len(inputs_of) == 1
+        if gate_outputs and len(drivers) > 1 and not paralleled:
             found.append(_finding("outputs-tied", [p.ref for p, _ in drivers], (
                 f"net {net} is driven by {', '.join(f'{p.ref}.{k}' for p, k in drivers)}: "
                 "outputs fight whenever they disagree; join them through resistors "
@@ -625,13 +635,14 @@ def _speaker_findings(net_model: _Network) -> list[Finding]:
         key, _ = REGISTRY[part.kind].terminals[0]
         sides = part.nets[key]
         reached = [net_model.reaches_drive(net, without=(part.ref,)) for net in sides]
-        if not all(reached):
-            continue
+        if not all(reached) or len(set(reached[0]) | set(reached[1])) < 2:
+            continue  # one side floats at DC, or both reach the same one driven net
         names = net_model.circuit.names
+        rails = {net_model.circuit.index[rail] for rail in RAILS}
+        if not (set(reached[0]) | set(reached[1])) & rails:
+            continue  # bridged between outputs: DC only if their averages differ (dynamic)
         driven = {names[node] for node in net_model.driven}
-        bridged = all(net in driven and net not in RAILS for net in sides)
-        how = ("bridged between two outputs, it passes the difference of their averages"
-               if bridged else "a DC current flows through its coil")
+        how = "a DC current flows through its coil"
 
         def side(net: str, nodes: list[int]) -> str:
             if net in RAILS:
@@ -755,23 +766,29 @@ def dynamic_findings(patch: Patch, opts: CheckOptions) -> tuple[list[Finding], d
         outs = [nodes[names_local.index(key)] for key in kind.outputs]
         ins = [nodes[names_local.index(key)] for key in kind.inputs]
         delivered = (total - own + charging)[:, outs]
+        # an output sources from vdd through its p channel and sinks to gnd through its n
+        vdd = states[:, [net_model.circuit.index["vdd"]]]
+        across = np.where(delivered > 0.0, vdd - states[:, outs], states[:, outs])
         out_peak = float(np.max(np.abs(delivered))) if delivered.size else 0.0
+        watts = float(np.max(np.abs(delivered) * np.abs(across))) if delivered.size else 0.0
         clamp_peak = float(np.max(np.abs(own[:, ins]))) if len(own) and ins else 0.0
         measured["gates"][ref] = {"peak_output_ma": out_peak * 1e3,
+                                  "peak_output_mw": watts * 1e3,
                                   "peak_clamp_ma": clamp_peak * 1e3}
         r_out = net_model.out_ohms.get(ref)
-        if out_peak > PIN_MAX_AMPS:
+        if watts > OUTPUT_TRANSISTOR_MAX_WATTS:
             found.append(_finding("output-current", [ref], (
-                f"the output of {ref} carried up to {_amps(out_peak)}, above the "
-                f"{_amps(PIN_MAX_AMPS)} per-pin maximum of B-series parts: raise its load"),
-                severity=ERROR))
+                f"the output of {ref} carried up to {_amps(out_peak)} and its output "
+                f"transistor dissipated up to {format_quantity(watts, 'W', 2)}, above the "
+                f"{format_quantity(OUTPUT_TRANSISTOR_MAX_WATTS, 'W')} B-series parts are rated "
+                "for: raise its load"), severity=ERROR))
         elif r_out is not None and out_peak * r_out > SWING_LOSS_WARN * volts:
             found.append(_finding("output-current", [ref], (
                 f"the output of {ref} carried up to {_amps(out_peak)}, which sags it by about "
                 f"{format_quantity(out_peak * r_out, 'V', 2)} through its "
                 f"{_ohms(r_out)} output resistance")))
         if clamp_peak > CLAMP_CONDUCTING_AMPS:
-            severity = ERROR if clamp_peak > PIN_MAX_AMPS else WARNING
+            severity = ERROR if clamp_peak > INPUT_MAX_AMPS else WARNING
             found.append(_finding("input-clamp", [ref], (
                 f"the input protection diodes of {ref} conducted up to {_amps(clamp_peak)}: "
                 f"its input (net {_terminals(part, kind.inputs)[0]}) went past a rail; add "

@@ -103,10 +103,16 @@ def compare_measures(a: dict, b: dict) -> dict:
             "harmonics_db": harmonics}
 
 
+def _signed(value: float) -> str:
+    """``+2.24`` / ``-0.30``, two decimals; a change that rounds to zero reads ``+0.00``."""
+    return f"{value if round(value, 2) else 0.0:+.2f}"
+
+
 def shift_text(change: dict) -> str:
     """``pitch +2.24 cents, level -0.30 dB`` (``no steady pitch`` / ``silent`` when None)."""
-    pitch = "no steady pitch" if change["cents"] is None else f"pitch {change['cents']:+.2f} cents"
-    level = "silent" if change["db"] is None else f"level {change['db']:+.2f} dB"
+    pitch = ("no steady pitch" if change["cents"] is None
+             else f"pitch {_signed(change['cents'])} cents")
+    level = "silent" if change["db"] is None else f"level {_signed(change['db'])} dB"
     return f"{pitch}, {level}"
 
 

@@ -86,8 +86,8 @@ def _digest(source: str) -> str:
     for name in kind_order():
         module = sys.modules[blocks.module_of(name)]
         h.update(Path(module.__file__).read_bytes())
-    h.update(Path(blocks.__file__).with_name("_junction.py").read_bytes())
-    h.update(Path(blocks.__file__).with_name("_base.py").read_bytes())
+    for helper in sorted(Path(blocks.__file__).parent.glob("_*.py")):
+        h.update(helper.read_bytes())
     h.update(numba.__version__.encode())
     return h.hexdigest()[:16]
 

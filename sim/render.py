@@ -18,9 +18,9 @@ from sim import audio, kernel, measure, plots
 from sim.compile import Circuit, compile_patch
 from sim.errors import PatchError, UsageError
 from sim.fileio import write_json
-from sim.units import format_quantity
 from sim.simulate import StepOptions, simulate, simulate_reference
 from sim.trace import DenseTrace, StepTrace
+from sim.units import format_quantity
 
 #: Samples per audio sample in the simulated signal before the anti-alias filter and
 #: decimation. 4 x 48 kHz = 192 kHz puts the first alias of a square's harmonics far
@@ -51,8 +51,8 @@ SUPPLY_MIN_VOLTS = 3.0
 #: Kinds whose current ``listen: REF`` plays, and the parameter (ohms) that turns that
 #: current into the WAV's volts: a speaker's coil current times its coil resistance, the
 #: volts a resistor of the speaker's ohms would show. So the fixed full scale applies as
-#: for a net, and two renders through the same speaker compare as the square root of
-#: their power.
+#: for a net, and the levels of two renders through the same speaker compare as the
+#: square roots of their powers.
 LISTEN_CURRENT_OHMS = {"speaker": "ohms"}
 
 #: A speaker whose mean current is more than this fraction of its RMS current (DC

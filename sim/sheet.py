@@ -60,6 +60,9 @@ DECOUPLING_FARADS = 100e-9
 DIODE_NAMES = {"signal": "silicon signal diode", "schottky": "Schottky diode",
                "red-led": "red LED"}
 
+#: Kinds bought by an E-series value (named by series and letter code on the sheet).
+SERIES_KINDS = ("resistor", "pot", "capacitor")
+
 #: Order of kinds in the bill of materials: what a builder lays out first.
 BOM_ORDER = ("battery", GATE_KIND, "resistor", "pot", "capacitor", "diode")
 
@@ -305,10 +308,12 @@ def _describe_value(part: Part) -> tuple[str, str, str, float, str]:
         return part.model or "", "", "", 0.0, ""
     value = float(part.values[main])
     unit = kind.param(main).unit
-    text = format_quantity(value, unit)
+    text = format_quantity(value, unit) if unit else f"{main} {value:g}"
+    note = f"model {part.model}" if part.model else ""
+    if part.kind not in SERIES_KINDS:
+        return text, "", "", value, note
     code = eseries.letter_code(value, unit) if unit in eseries.LETTERS else ""
-    series = (eseries.series_of(value) or "off-series") if unit in ("ohm", "F") else ""
-    note = ""
+    series = eseries.series_of(value) or "off-series"
     if series == "off-series":
         note = f"not an E96 value; nearest E24: {format_quantity(eseries.nearest(value), unit)}"
     if part.kind == "pot":
@@ -320,7 +325,7 @@ def bill_of_materials(patch: Patch, packages: dict[str, Package],
                       decoupling: list[str]) -> list[BomLine]:
     """Parts to buy, grouped by kind and value; test sources are not parts to buy."""
     volts = float(patch.supply.values["volts"])
-    lines: dict[tuple[str, str], BomLine] = {}
+    lines: dict[tuple[str, ...], BomLine] = {}
     battery = BomLine(kind="battery", value=format_quantity(volts, "V"), refs=["supply"],
                       note="or an isolated, certified low-voltage adapter", sort_value=volts)
     lines[("battery", battery.value)] = battery
@@ -333,7 +338,7 @@ def bill_of_materials(patch: Patch, packages: dict[str, Package],
         if part.kind == GATE_KIND or (kind.outputs and not kind.inputs):
             continue  # gates are counted as packages; a test source is not bought
         value, code, series, sort_value, note = _describe_value(part)
-        key = (part.kind, value)
+        key = (part.kind, value, note)
         if key not in lines:
             lines[key] = BomLine(kind=part.kind, value=value, refs=[], code=code,
                                  series=series, note=note, sort_value=sort_value)

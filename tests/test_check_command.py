@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from sim import cli
-from sim.checks import CAUTIONS, RULES, CheckOptions, check_patch
+from sim.checks import CAUTIONS, CheckOptions, check_patch
 from sim.patch import load_patch
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -32,20 +32,30 @@ def run_cli(*args, cwd=ROOT):
 
 
 @pytest.mark.parametrize("path", SCENARIOS, ids=lambda p: p.stem)
-def test_every_scenario_passes_the_static_checks_but_for_its_spare_gates(path):
+def test_every_scenario_passes_the_static_checks(path):
     report = check_patch(load_patch(path, lone_nets_ok=True))
-    assert report.exit_status == 0
-    # The scenarios leave their spare gates out of the patch; check reminds the builder
-    # to tie their inputs (the build sheet lists the ties).
-    assert {f.code for f in report.findings} <= {"spare-input"}
+    assert report.errors == []
+
+
+#: The warnings each scenario is expected to carry, and why (the README says the same).
+#: Every scenario leaves its spare gates out of the patch, so "spare-input" reminds the
+#: builder to tie their inputs (the build sheet lists the ties).
+EXPECTED_WARNINGS = {
+    # U1E and U1F drive the 8 ohm speaker bridged through 330 ohm: about 340 ohm each,
+    # which a gate drives only with a large sag (the scenario shows that on purpose)
+    "bridged": {"heavy-load", "output-current"},
+    # the 1 k : 8 ohm transformer shows U1D about 1.1 kohm: a 17 % sag
+    "step-down": {"heavy-load", "spare-input"},
+}
 
 
 @pytest.mark.parametrize("path", SCENARIOS, ids=lambda p: p.stem)
-def test_every_scenario_passes_the_dynamic_checks(path):
+def test_every_scenario_passes_the_dynamic_checks_with_only_its_explained_warnings(path):
     opts = CheckOptions(simulate=True, seconds=0.05, settle=0.05)
     report = check_patch(load_patch(path, lone_nets_ok=True), opts)
-    dynamic = [f for f in report.findings if RULES[f.code].dynamic]
-    assert dynamic == []
+    assert report.exit_status == 0, [f.line() for f in report.errors]
+    assert {f.code for f in report.warnings} <= EXPECTED_WARNINGS.get(path.stem,
+                                                                     {"spare-input"})
     assert report.measured["gates"]
 
 

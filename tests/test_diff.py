@@ -93,9 +93,12 @@ def test_the_harmonics_change_is_b_minus_a_per_harmonic_and_null_where_one_lacks
     assert compare_measures(a, b)["harmonics_db"] == [0.0, 6.0, -12.0, None]
 
 
-def test_the_summary_reads_as_one_line_with_signs():
-    change = {"cents": 2.2449, "db": -0.3, "harmonics_db": None}
-    assert change_text(change, "tri") == "pitch +2.24 cents, level -0.30 dB at tri"
+@pytest.mark.parametrize("cents, db, text", [
+    (2.2449, -0.3, "pitch +2.24 cents, level -0.30 dB at tri"),
+    (-0.001, -0.004, "pitch +0.00 cents, level +0.00 dB at tri"),
+])
+def test_the_summary_reads_as_one_line_with_signs(cents, db, text):
+    assert change_text({"cents": cents, "db": db, "harmonics_db": None}, "tri") == text
 
 
 # -- a patch against itself ----------------------------------------------------------

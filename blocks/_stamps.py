@@ -1,0 +1,23 @@
+"""Stamping helpers shared by the kinds' kernels."""
+
+from __future__ import annotations
+
+import numba
+
+
+@numba.njit
+def branch(f, G, a, b, amps, siemens):
+    """Add a current ``amps`` flowing from node ``a`` to node ``b`` through a part whose
+    conductance is ``siemens`` = d amps / d(v_a - v_b)."""
+    f[a] += amps
+    f[b] -= amps
+    G[a, a] += siemens
+    G[a, b] -= siemens
+    G[b, a] -= siemens
+    G[b, b] += siemens
+
+
+@numba.njit
+def conductance(f, G, x, a, b, siemens):
+    """A linear conductance (S) between nodes ``a`` and ``b``."""
+    branch(f, G, a, b, siemens * (x[a] - x[b]), siemens)
