@@ -113,7 +113,8 @@ IDEAL_TRANSFORMER = """
     patch: ideal-transformer
     supply: {volts: 9}
     parts:
-      V1: {kind: source, between: [p, gnd], wave: sine, hz: $hz, volts: 1, source_ohms: $source_ohms}
+      V1: {kind: source, between: [p, gnd], wave: sine, hz: $hz, volts: 1,
+           source_ohms: $source_ohms}
       T1: {kind: transformer, primary: [p, gnd], secondary: [s, gnd], ratio: $ratio,
            primary_henries: $henries, coupling: $coupling, primary_ohms: 1m,
            secondary_ohms: 1m, core_ohms: 1G}
@@ -122,7 +123,7 @@ IDEAL_TRANSFORMER = """
 """
 
 IDEAL_CASES = [
-    pytest.param(10.0, 8.0, id="1:10 step-down into 8 ohm"),
+    pytest.param(10.0, 8.0, id="10:1 step-down into 8 ohm"),
     pytest.param(3.0, 100.0, id="3:1 step-down into 100 ohm"),
     pytest.param(0.5, 1000.0, id="1:2 step-up into 1 kohm"),
 ]
@@ -270,7 +271,8 @@ def test_the_cone_resonance_follows_the_thiele_small_equivalent_circuit(patch_fr
     w = 2.0 * math.pi * hz
     # source: Thiele/Small equivalent circuit: Z = Re + j w Le + 1 / (1/Res + j w Cmes +
     # 1 / (j w Lces)), with Res = Re Qms/Qes, Cmes = Qes / (ws Re), Lces = Re / (ws Qes)
-    expected = ohms + 1j * w * henries + 1.0 / (1.0 / r_es + 1j * w * c_mes + 1.0 / (1j * w * l_ces))
+    motional = 1.0 / (1.0 / r_es + 1j * w * c_mes + 1.0 / (1j * w * l_ces))
+    expected = ohms + 1j * w * henries + motional
     assert abs(impedance / expected - 1.0) < PHASOR_RTOL
     if fraction_of_resonance == 1.0:
         # source: Thiele/Small: at fs the impedance peaks at Re (1 + Qms/Qes); the coil's
