@@ -9,6 +9,7 @@ whole `halfrail render` of 10 s (WAV, plots and report), cache warm.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import subprocess
@@ -26,7 +27,7 @@ from sim import kernel  # noqa: E402
 from sim.compile import compile_patch  # noqa: E402
 from sim.measure import measure_signal  # noqa: E402
 from sim.patch import load_patch  # noqa: E402
-from sim.render import OVERSAMPLE  # noqa: E402
+from sim.render import OVERSAMPLE, RenderOptions, render  # noqa: E402
 from sim.simulate import StepOptions, simulate, simulate_reference  # noqa: E402
 
 AUDIO_SECONDS = 10.0
@@ -34,6 +35,24 @@ AUDIO_SECONDS = 10.0
 REFERENCE_FROM, REFERENCE_TO = 0.02, 0.08
 RATE = 48000 * OVERSAMPLE
 SCENARIOS = {"tri-square": "sq", "mixer": "sqa", "saw": "sq"}
+
+
+def alias_floor_db(samples, rate_hz, f0_hz, half_width_hz=8.0):
+    """Energy between the harmonics of f0 over the total (DC excluded), dB.
+
+    Blackman-Harris window (sidelobes below -92 dB); every bin within half_width_hz of a
+    harmonic counts as harmonic. A perfectly periodic, alias-free render gives the
+    window's floor; aliases of a square's harmonics land between the harmonics.
+    """
+    from scipy.signal import windows
+
+    x = np.asarray(samples, float) - np.mean(samples)
+    spec = np.abs(np.fft.rfft(x * windows.blackmanharris(x.size))) ** 2
+    freqs = np.fft.rfftfreq(x.size, 1.0 / rate_hz)
+    near = freqs < half_width_hz
+    for n in range(1, int(freqs[-1] / f0_hz) + 1):
+        near |= np.abs(freqs - n * f0_hz) <= half_width_hz
+    return 10 * np.log10(spec[~near].sum() / spec[1:].sum())
 
 
 def pitch(trace, net, t0, t1):
@@ -71,6 +90,13 @@ def main() -> None:
         print(f"{'':11s} reference Radau rtol 1e-8: {ref_wall:.1f} s for {span:g} s "
               f"(x{span / ref_wall:.4f} real time; compiled default is "
               f"{(AUDIO_SECONDS / wall) / (span / ref_wall):.0f} times faster)")
+    patch = load_patch(ROOT / "scenarios" / "tri-square.yaml")
+    square = dataclasses.replace(patch, listen=dataclasses.replace(patch.listen, nets=("sq",)))
+    result = render(square, write=False, opts=RenderOptions(seconds=2.0, progress=False))
+    trim = int(0.1 * 48000)  # leave out the fades
+    floor = alias_floor_db(result.audio_volts[trim:-trim], 48000, result.report["listen"]["freq_hz"])
+    print(f"alias floor of a square-wave render (tri-square listening at sq, 48 kHz WAV path): "
+          f"{floor:.1f} dB")
     with tempfile.TemporaryDirectory() as out:
         cmd = [str(Path(sys.executable).with_name("halfrail")), "render",
                str(ROOT / "scenarios" / "tri-square.yaml"), "--seconds", "10", "--out", out,

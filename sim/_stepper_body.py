@@ -155,7 +155,7 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jum
     dv_max = opt[O_DV_MAX]
     max_iter = int(opt[O_MAX_ITER])
     worst = 1
-    for it in range(max_iter):
+    for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
         evaluate(xn, t_new, pf, nf, tab, df, f, G)
         for i in range(1, n):
@@ -430,3 +430,16 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         else:
             st[S_HNORMAL] = h
             st[S_H] = h * fac
+
+
+@numba.njit(cache=True)
+def evaluate_rows(X, t, pf, nf, tab, df, F):
+    """``f`` for every state row of X (m, n) into F (m, n): post-processing helper
+    (e.g. currents out of each gate along a trace), one compiled loop."""
+    n = X.shape[1]
+    G = np.zeros((n, n))
+    f = np.zeros(n)
+    for s in range(X.shape[0]):
+        evaluate(X[s], t, pf, nf, tab, df, f, G)
+        for i in range(n):
+            F[s, i] = f[i]

@@ -35,7 +35,7 @@ from sim import audio, plots
 from sim.errors import PatchError
 from sim.fileio import atomic_path, write_json
 from sim.patch import Patch, load_patch, parse_override
-from sim.render import (OVERSAMPLE, PLOT_MIN_SECONDS, PLOT_NO_PITCH_SECONDS, PLOT_PERIODS,
+from sim.render import (PLOT_MIN_SECONDS, PLOT_NO_PITCH_SECONDS, PLOT_PERIODS,
                         Rendered, RenderOptions, listen_label, render)
 
 #: Cents per octave: a cent is 1/1200 of an octave (definition of the cent), so a
@@ -183,7 +183,7 @@ def ab_samples(a: Rendered, b: Rendered, opts: RenderOptions) -> tuple[np.ndarra
     """
     parts, infos = [], []
     for rendered in (a, b):
-        listen_audio = audio.decimate(rendered.listen, OVERSAMPLE)
+        listen_audio = rendered.audio_volts
         samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
                                              normalize=False, rate_hz=opts.rate_hz)
         parts.append(samples)

@@ -25,7 +25,7 @@ import numpy as np
 from sim import audio
 from sim.errors import HalfrailError, UsageError
 from sim.patch import Patch
-from sim.render import OVERSAMPLE, RenderOptions, render
+from sim.render import RenderOptions, render
 
 #: Peak level of the played signal by default, in dBFS.  -20 dBFS peak is 19 dB
 #: below the level a ``--normalize`` render plays at (-1 dBFS): a low start on any
@@ -118,13 +118,12 @@ def check_volume(volume_dbfs: float) -> None:
 def audition_samples(listen_volts, opts: RenderOptions, volume_dbfs: float) -> np.ndarray:
     """Samples to play, shape ``(n,)`` at ``opts.rate_hz``, peaking at ``volume_dbfs``.
 
-    ``listen_volts``: the render's listening signal at ``OVERSAMPLE`` times the audio
-    rate, shape ``(m,)``.  It goes through the render's own steps (decimation, DC
-    removal, fades) normalised to ``audio.NORMALIZE_PEAK_DBFS``, then is scaled down
+    ``listen_volts``: the render's listening signal at the audio rate
+    (``Rendered.audio_volts``), shape ``(n,)``.  It goes through the render's own steps
+    (DC removal, fades) normalised to ``audio.NORMALIZE_PEAK_DBFS``, then is scaled down
     to ``volume_dbfs``; silence stays silence.
     """
-    listen_audio = audio.decimate(listen_volts, OVERSAMPLE)
-    samples, _ = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
+    samples, _ = audio.to_wav_samples(np.asarray(listen_volts), full_scale_volts=opts.full_scale_volts,
                                       normalize=True, rate_hz=opts.rate_hz)
     return samples * 10.0 ** ((volume_dbfs - audio.NORMALIZE_PEAK_DBFS) / 20.0)
 
@@ -142,7 +141,7 @@ def play(patch: Patch, opts: RenderOptions | None = None,
     check_volume(volume_dbfs)
     device = open_output(patch)
     rendered = render(patch, opts=opts, write=False)
-    samples = audition_samples(rendered.listen, opts, volume_dbfs)
+    samples = audition_samples(rendered.audio_volts, opts, volume_dbfs)
     if announce is not None:
         announce(f"playing {opts.seconds:g} s of {patch.name} at {volume_dbfs:g} dBFS peak "
                  "(low on purpose: raise it with --volume; headphones need extra care)")
