@@ -106,6 +106,101 @@ def main() -> None:
         subprocess.run(cmd, check=True, capture_output=True)
         print(f"whole `halfrail render tri-square --seconds 10` (cache warm): "
               f"{time.perf_counter() - t:.2f} s")
+    sweep_figures()
+    spread_and_tune_figures()
+
+
+#: tri-square.yaml with R3 replaced by a 20k pot as a variable resistor in series with 90k.
+POT_OSCILLATOR = (ROOT / "scenarios" / "tri-square.yaml").read_text().replace(
+    "R3:  {kind: resistor, between: [sq, sum], value: 100k}",
+    "RV1: {kind: pot, ends: [sq, arm], wiper: arm, value: 20k}\n"
+    "  R3:  {kind: resistor, between: [arm, sum], value: 90k}")
+
+
+def sweep_figures() -> None:
+    """Stepped sweep wall times (command and library, 1 and 2 workers), the moving pot
+    against the stepped curve, and the oscillator's drift with the supply."""
+    from scipy.interpolate import PchipInterpolator
+
+    from sim.measure import pitch_track
+    from sim.render import Move
+    from sim.sweep import STEP_SECONDS, sweep
+
+    oscillator = ROOT / "scenarios" / "tri-square.yaml"
+    with tempfile.TemporaryDirectory() as out:
+        cmd = [str(Path(sys.executable).with_name("halfrail")), "sweep", str(oscillator),
+               "R3.value", "50k:200k:11", "--log", "--out", out, "--quiet"]
+        t = time.perf_counter()
+        subprocess.run(cmd, check=True, capture_output=True)
+        print(f"whole `halfrail sweep tri-square R3.value 50k:200k:11 --log` ({STEP_SECONDS:g} s "
+              f"per step, {os.cpu_count()} workers, WAV, plot, start-up included): "
+              f"{time.perf_counter() - t:.2f} s")
+    for seconds, workers in ((STEP_SECONDS, 1), (STEP_SECONDS, 2), (1.0, 2)):
+        swept = sweep(oscillator, "R3.value", "50k:200k:11", log=True, workers=workers,
+                      opts=RenderOptions(seconds=seconds, progress=False), progress=False,
+                      write=False)
+        print(f"sweep library call, 11 steps of {seconds:g} s, {workers} worker(s): "
+              f"{swept.wall_seconds:.2f} s")
+    drift = sweep(oscillator, "supply.volts", "9:5:9", opts=RenderOptions(seconds=0.5,
+                  progress=False), progress=False, write=False).report
+    currents = [p["supply_ma"] for p in drift["points"]]
+    print(f"tri-square pitch drift with the supply (9 V to 5 V, 9 steps): "
+          f"{drift['drift']['cents_per_volt']:+.1f} cents per volt; supply current "
+          f"{currents[0]:.2f} mA at 9 V, {currents[-1]:.2f} mA at 5 V")
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "pot-square.yaml"
+        path.write_text(POT_OSCILLATOR)
+        points = sweep(path, "RV1.position", "0:1:11", opts=RenderOptions(seconds=0.3,
+                       progress=False), progress=False, write=False).report["points"]
+        curve = PchipInterpolator([p["value"] for p in points],
+                                  np.log2([p["freq_hz"] for p in points]))
+        move_seconds = 4.0
+        opts = RenderOptions(seconds=move_seconds, progress=False,
+                             moves=(Move("RV1", "position", "0", "1"),))
+        t = time.perf_counter()
+        moving = render(load_patch(path), write=False, opts=opts)
+        wall = time.perf_counter() - t
+    for window in (0.01, 0.02, 0.05):
+        times, freqs = pitch_track(moving.listen, moving.sample_rate_hz, window)
+        ok = np.isfinite(freqs)
+        cents = 1200 * (np.log2(freqs[ok]) - curve(times[ok] / move_seconds))
+        worst = f"{np.max(np.abs(cents)):.2f}" if ok.any() else "-"
+        print(f"moving pot 0 to 1 over {move_seconds:g} s ({wall:.1f} s wall) vs the 11-step "
+              f"sweep, {window * 1e3:g} ms windows: {ok.sum()}/{ok.size} tracked, largest "
+              f"difference {worst} cents")
+
+
+#: The spread figure: this many builds of 1 s renders of the oscillator (target: under
+#: 60 s on a 2-core machine).
+SPREAD_RUNS = 200
+
+
+def spread_and_tune_figures() -> None:
+    """Wall time of a 200-build spread of 1 s renders (its numbers too), of the
+    sensitivity renders, and of tuning R3 to A3 (1 s renders), with their results."""
+    from sim.spread import ranked_sensitivity, spread
+    from sim.tune import target_hz, tune
+
+    patch = load_patch(ROOT / "scenarios" / "tri-square.yaml")
+    opts = RenderOptions(progress=False)
+    result = spread(patch, runs=SPREAD_RUNS, opts=opts, sensitivity=False, progress=False)
+    c = result.report["cents"]
+    print(f"spread tri-square, {SPREAD_RUNS} builds of {opts.seconds:g} s renders "
+          f"({os.cpu_count()} workers, {result.renders} renders): "
+          f"{result.wall_seconds:.1f} s (target under 60 s); median {c['median']:+.1f} cents, "
+          f"5 % {c['p5']:+.1f}, 95 % {c['p95']:+.1f}, "
+          f"{result.report['within']['fraction']:.0%} within "
+          f"+-{result.report['within']['window_cents']:g} cents")
+    sens = spread(patch, runs=1, opts=opts, progress=False)
+    top = ", ".join(f"{key} {slope:+.2f}" for key, slope, _ in ranked_sensitivity(sens)[:6])
+    print(f"sensitivity renders ({sens.renders - 2} renders of {opts.seconds:g} s): "
+          f"{sens.wall_seconds:.1f} s; cents per %: {top}")
+    result = tune(patch, "R3", target_hz(note="A3"), opts=opts, progress=False)
+    tuned, best = result.report, result.report["candidates"][0]
+    print(f"tune tri-square R3 to A3 ({tuned['renders']} renders of {opts.seconds:g} s): "
+          f"{result.wall_seconds:.1f} s; "
+          f"exact {tuned['exact_value'] / 1e3:.2f} k ({tuned['exact_cents']:+.3f} cents); best "
+          f"{best['label']} {best['cents']:+.2f} cents")
 
 
 if __name__ == "__main__":

@@ -6,6 +6,7 @@ Defaults come from the library (:class:`sim.render.RenderOptions`), never restat
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 
 from sim.errors import HalfrailError
@@ -47,28 +48,40 @@ def _parser() -> argparse.ArgumentParser:
                    help="accuracy of the compiled stepper (default: default)")
     r.add_argument("--quiet", action="store_true", help="no progress bar")
     r.add_argument("--verbose", action="store_true", help="print the solver's work counters")
+    r.add_argument("--move", action="append", default=[], metavar="REF.param=START:STOP",
+                   dest="moves",
+                   help="turn a parameter linearly from START to STOP over the kept seconds, "
+                        "in one continuous simulation, e.g. RV1.position=0:1 (repeatable)")
 
     k = sub.add_parser("kinds", help="list the kinds of parts and their parameters")
     k.add_argument("kind", nargs="?", help="one kind to describe in full")
     _add_check_parsers(sub)
     _add_diff_parser(sub, d)
     _add_play_parser(sub, d)
+    _add_sweep_parser(sub, d)
+    _add_spread_parser(sub, d)
+    _add_tune_parser(sub, d)
     return top
 
 
 def _render(args) -> int:
     from sim.patch import load_patch
-    from sim.render import render
+    from sim.render import parse_move, render
 
     patch = load_patch(args.patch, args.overrides)
     opts = RenderOptions(seconds=args.seconds, settle=args.settle, rate_hz=args.rate,
                          full_scale_volts=args.full_scale, normalize=args.normalize,
-                         solver=args.solver, quality=args.quality, progress=not args.quiet)
+                         solver=args.solver, quality=args.quality, progress=not args.quiet,
+                         moves=tuple(parse_move(text) for text in args.moves))
     result = render(patch, args.out, opts)
     rep = result.report
     lis = rep["listen"]
     pitch = (f"{lis['freq_hz']:.3f} Hz ({lis['note']} {lis['cents']:+.2f} cents)"
              if lis["freq_hz"] else "no steady pitch")
+    if "moves" in rep:
+        found = [f for f in rep["pitch_track"]["freq_hz"] if f is not None]
+        pitch = (f"pitch {found[0]:.2f} Hz at the start, {found[-1]:.2f} Hz at the end" if found
+                 else "no steady pitch in any window")
     print(f"{patch.name}: {pitch}; supply {rep['supply']['mean_ma']:.2f} mA mean, "
           f"{rep['supply']['peak_ma']:.2f} mA peak")
     for warning in rep["warnings"]:
@@ -171,6 +184,206 @@ def _diff(args) -> int:
     return 0
 
 
+def _add_sweep_parser(sub, d: RenderOptions) -> None:
+    from sim.runner import LOCAL
+    from sim.sweep import STEP_SECONDS
+
+    w = sub.add_parser("sweep", help="render a parameter at steps: pitch table, plot, WAV of steps",
+                       description="Render PATCH once per value of REF.param over RANGE and "
+                                   "write DIR/<patch>.sweep.json, .sweep.csv (pitch, note, "
+                                   "level, THD, supply current per step), .sweep.png (pitch "
+                                   "against the value, with note names) and .sweep.wav (the "
+                                   "steps in order at one level). Sweeping supply.volts adds "
+                                   "the pitch drift in cents per volt.")
+    w.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    w.add_argument("param", metavar="REF.param", help="parameter to step, e.g. RV1.position, "
+                                                      "R3.value or supply.volts")
+    w.add_argument("range", metavar="RANGE",
+                   help="START:STOP:COUNT, e.g. 0:1:11, 47k:220k:8 or 9:5:9 (ends included)")
+    w.add_argument("--log", action="store_true",
+                   help="space the values by equal ratios instead of equal steps")
+    w.add_argument("--probe", metavar="NET",
+                   help="probed net to measure (default: the listening signal)")
+    w.add_argument("--battery-mah", type=float, metavar="MAH",
+                   help="battery capacity: adds an estimate of battery life")
+    w.add_argument("--workers", type=int, metavar="N",
+                   help="local processes (default: one per core; 1 renders here)")
+    w.add_argument("--executor", default=LOCAL, metavar="local|dask:ADDRESS",
+                   help=f"where the steps run (default {LOCAL}; dask:ADDRESS sends them to "
+                        "an existing Dask scheduler)")
+    w.add_argument("--seconds", type=float, default=STEP_SECONDS, metavar="S",
+                   help=f"seconds kept of each step (default {STEP_SECONDS:g})")
+    w.add_argument("--settle", type=float, default=d.settle, metavar="S",
+                   help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
+    w.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    w.add_argument("--set", action="append", default=[], metavar="REF.param=value",
+                   dest="overrides", help="override a part parameter first, e.g. R2.value=120k "
+                                          "(repeatable)")
+    w.add_argument("--rate", type=int, default=d.rate_hz, metavar="HZ",
+                   help=f"WAV sample rate (default {d.rate_hz})")
+    w.add_argument("--full-scale", type=float, default=d.full_scale_volts, metavar="V",
+                   help=f"volts that make a full-scale sample, the same for every step "
+                        f"(default {d.full_scale_volts:g})")
+    w.add_argument("--normalize", action="store_true",
+                   help="one gain for all steps, the loudest peaking at -1 dBFS")
+    w.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
+                   help="accuracy of the compiled stepper (default: default)")
+    w.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _sweep(args) -> int:
+    from sim.sweep import summary_lines, sweep, table_lines
+
+    opts = RenderOptions(seconds=args.seconds, settle=args.settle, rate_hz=args.rate,
+                         full_scale_volts=args.full_scale, normalize=args.normalize,
+                         quality=args.quality)
+    result = sweep(args.patch, args.param, args.range, args.out, opts, overrides=args.overrides,
+                   probe=args.probe, log=args.log, workers=args.workers,
+                   executor=args.executor, battery_mah=args.battery_mah,
+                   progress=not args.quiet)
+    for line in table_lines(result.report):
+        print(line)
+    for line in summary_lines(result.report):
+        print(line)
+    for warning in result.report["warnings"]:
+        print(f"warning: {warning}", file=sys.stderr)
+    for path in result.paths:
+        print(f"wrote {path}")
+    print(f"{len(result.report['points'])} renders in {result.wall_seconds:.1f} s")
+    print(CAUTION)
+    return 0
+
+
+def _add_batch_options(p, d: RenderOptions) -> None:
+    """Options every command that renders a batch of variants shares (spread, tune)."""
+    from sim.runner import LOCAL
+    from sim.spread import BATCH_SECONDS
+
+    p.add_argument("--probe", metavar="NET",
+                   help="probed net to measure (default: the listening signal)")
+    p.add_argument("--workers", type=int, metavar="N",
+                   help="local processes (default: one per core; 1 renders here)")
+    p.add_argument("--executor", default=LOCAL, metavar="local|dask:ADDRESS",
+                   help=f"where the renders run (default {LOCAL}; dask:ADDRESS sends them to "
+                        "an existing Dask scheduler)")
+    p.add_argument("--seconds", type=float, default=BATCH_SECONDS, metavar="S",
+                   help=f"seconds kept of each render (default {BATCH_SECONDS:g})")
+    p.add_argument("--settle", type=float, default=d.settle, metavar="S",
+                   help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
+    p.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    p.add_argument("--set", action="append", default=[], metavar="REF.param=value",
+                   dest="overrides", help="override a part parameter first, e.g. R2.value=120k "
+                                          "(repeatable)")
+    p.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
+                   help="accuracy of the compiled stepper (default: default)")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def _add_spread_parser(sub, d: RenderOptions) -> None:
+    from sim.spread import DEFAULT_RUNS, DEFAULT_SEED, DEFAULT_WINDOW_CENTS
+
+    s = sub.add_parser("spread", help="render builds drawn from the parts' tolerances: pitch "
+                                      "spread, histogram, sensitivities",
+                       description="Draw every toleranced parameter of PATCH uniformly within "
+                                   "its tolerance, render each build, and write "
+                                   "DIR/<patch>.spread.json (pitch of each build, percentiles "
+                                   "in cents from nominal, the fraction within --window, the "
+                                   "sensitivity to each parameter in cents per percent) and "
+                                   ".spread.png (histogram).")
+    s.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    s.add_argument("--runs", type=int, default=DEFAULT_RUNS, metavar="N",
+                   help=f"builds to draw and render (default {DEFAULT_RUNS})")
+    s.add_argument("--seed", type=int, default=DEFAULT_SEED, metavar="S",
+                   help=f"seed of the draws: the same seed draws the same builds "
+                        f"(default {DEFAULT_SEED})")
+    s.add_argument("--window", type=float, default=DEFAULT_WINDOW_CENTS, metavar="CENTS",
+                   help=f"a build is within when its pitch is this close to nominal "
+                        f"(default {DEFAULT_WINDOW_CENTS:g} cents)")
+    s.add_argument("--no-sensitivity", action="store_true",
+                   help="skip the two renders per parameter that measure its sensitivity")
+    _add_batch_options(s, d)
+
+
+def _add_tune_parser(sub, d: RenderOptions) -> None:
+    from sim.eseries import SERIES
+    from sim.tune import DEFAULT_MAX_CENTS, DEFAULT_SERIES
+
+    t = sub.add_parser("tune", help="find the value of a part that puts the pitch on a note, "
+                                    "snapped to E-series values",
+                       description="Solve for the value of REF (a resistor's or a capacitor's "
+                                   "value) whose simulated pitch is the target, then render the "
+                                   "neighbouring values of an E-series (and two-part "
+                                   "combinations when one value misses by more than "
+                                   "--max-cents); write DIR/<patch>.tune.json.")
+    t.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
+    t.add_argument("ref", metavar="REF", help="part to change, e.g. R3 or C1")
+    target = t.add_mutually_exclusive_group(required=True)
+    target.add_argument("--note", metavar="NAME", help="target note, e.g. A3, C#4, Bb2 "
+                                                       "(A4 = 440 Hz)")
+    target.add_argument("--hz", type=float, metavar="F", help="target frequency in Hz")
+    t.add_argument("--series", choices=list(SERIES), default=DEFAULT_SERIES,
+                   help=f"E-series of the values to snap to (default {DEFAULT_SERIES})")
+    t.add_argument("--max-cents", type=float, default=DEFAULT_MAX_CENTS, metavar="C",
+                   help=f"try two-part combinations when the best single value is off by more "
+                        f"(default {DEFAULT_MAX_CENTS:g} cents)")
+    _add_batch_options(t, d)
+
+
+def _batch_render_options(args) -> RenderOptions:
+    return RenderOptions(seconds=args.seconds, settle=args.settle, quality=args.quality,
+                         progress=False)
+
+
+def _spread(args) -> int:
+    from sim.patch import load_patch
+    from sim.spread import ranked_sensitivity, spread, write_spread
+
+    patch = load_patch(args.patch, args.overrides)
+    result = spread(patch, runs=args.runs, seed=args.seed, probe=args.probe,
+                    window_cents=args.window, opts=_batch_render_options(args),
+                    workers=args.workers, executor=args.executor,
+                    sensitivity=not args.no_sensitivity, progress=not args.quiet)
+    rep = result.report
+    print(f"{patch.name}: nominal {rep['nominal_hz']:.3f} Hz ({rep['nominal_note']} "
+          f"{rep['nominal_cents']:+.2f} cents) at {rep['probe']}")
+    c = rep["cents"]
+    if c["median"] is None:
+        print(f"{rep['runs']} builds: none has a steady pitch")
+    else:
+        print(f"{rep['runs']} builds (seed {rep['seed']}): median {c['median']:+.1f} cents, "
+              f"5 % {c['p5']:+.1f}, 95 % {c['p95']:+.1f}; "
+              f"{rep['within']['fraction']:.0%} within +-{rep['within']['window_cents']:g} cents"
+              + (f"; {rep['no_pitch_runs']} without a steady pitch" if rep["no_pitch_runs"]
+                 else ""))
+    rows = ranked_sensitivity(result)
+    if rows:
+        print("sensitivity (cents per % change; RMS cents its tolerance adds):")
+    for key, slope, rms in rows:
+        print(f"  {key:16s} {slope:+8.2f} c/%  {rms:7.1f} cents  (+-{rep['tolerance_pct'][key]:g} %)")
+    for path in write_spread(result, args.out):
+        print(f"wrote {path}")
+    print(f"{result.renders} renders in {result.wall_seconds:.1f} s")
+    return 0
+
+
+def _tune(args) -> int:
+    from sim.patch import load_patch
+    from sim.tune import summary_lines, target_hz, tune, write_tune
+
+    patch = load_patch(args.patch, args.overrides)
+    target = target_hz(note=args.note, hz=args.hz)
+    tuned = tune(patch, args.ref, target, probe=args.probe, series=args.series,
+                 max_cents=args.max_cents, opts=_batch_render_options(args),
+                 workers=args.workers, executor=args.executor, progress=not args.quiet,
+                 announce=None if args.quiet else print)
+    for line in summary_lines(tuned.report):
+        print(line)
+    for path in write_tune(tuned, args.out):
+        print(f"wrote {path}")
+    print(f"{tuned.report['renders']} renders in {tuned.wall_seconds:.1f} s")
+    return 0
+
+
 def _play(args) -> int:
     from sim.patch import load_patch
     from sim.play import play
@@ -263,6 +476,12 @@ def main(argv: list[str] | None = None) -> int:
             return _diff(args)
         if args.command == "play":
             return _play(args)
+        if args.command == "sweep":
+            return _sweep(args)
+        if args.command == "spread":
+            return _spread(args)
+        if args.command == "tune":
+            return _tune(args)
         return _kinds(args)
     except HalfrailError as error:
         print(f"halfrail: {error}", file=sys.stderr)
@@ -270,6 +489,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("halfrail: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # the reader went away (``halfrail ... | head``): stop quietly, as other tools do
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
 
 
 if __name__ == "__main__":

@@ -18,7 +18,7 @@ from sim import audio, kernel, measure, plots
 from sim.compile import Circuit, compile_patch
 from sim.errors import PatchError, UsageError
 from sim.fileio import write_json
-from sim.simulate import StepOptions, simulate, simulate_reference
+from sim.simulate import Automation, StepOptions, simulate, simulate_reference
 from sim.trace import DenseTrace, StepTrace
 from sim.units import format_quantity
 
@@ -83,6 +83,55 @@ SOLVERS = ("compiled", "reference")
 #: Tolerances of ``--quality`` (rtol of the compiled stepper; atol is a tenth of it in volts).
 QUALITIES = {"draft": 1e-3, "default": StepOptions.rtol, "fine": 1e-5}
 
+#: Window lengths of the pitch track of a moving render, shortest first (s). A window
+#: must hold a few periods (sim.measure.MIN_PERIODS) yet see little drift within it
+#: (sim.measure.DRIFT_LIMIT_CENTS between its thirds): 5 ms suits a fast move of a
+#: high pitch (four periods at 800 Hz), 80 ms a slow move of a low one (three periods
+#: at 40 Hz). At each point of the track the window that last worked is tried first,
+#: then the others nearest to it.
+MOVE_TRACK_WINDOWS_SECONDS = (0.005, 0.01, 0.02, 0.04, 0.08)
+
+#: Spacing of the points of that track (s): a hundred a second follows any knob a hand
+#: can turn.
+MOVE_TRACK_HOP_SECONDS = 0.01
+
+
+@dataclass(frozen=True)
+class Move:
+    """A parameter turned linearly over the kept part of a render (``--move``).
+
+    ``start`` and ``stop`` are the values as written (``"0"``, ``"10k"``); the
+    parameter holds ``start`` from power-on to the end of ``settle``, moves linearly
+    to ``stop`` over the kept seconds, and ends there.
+    """
+
+    ref: str
+    param: str
+    start: str
+    stop: str
+
+    @property
+    def key(self) -> str:
+        return f"{self.ref}.{self.param}"
+
+    def __str__(self) -> str:
+        return f"{self.key}={self.start}:{self.stop}"
+
+
+def parse_move(text: str) -> Move:
+    """Read ``"REF.param=START:STOP"`` (``RV1.position=0:1``); UsageError when malformed."""
+    from sim.patch import parse_override
+
+    shape = "REF.param=START:STOP such as RV1.position=0:1 or supply.volts=9:6"
+    try:
+        ref, param, raw = parse_override(text)
+    except ValueError as error:
+        raise UsageError(f"--move {text}: expected {shape}") from error
+    start, colon, stop = raw.partition(":")
+    if not colon or not start.strip() or not stop.strip() or ":" in stop:
+        raise UsageError(f"--move {text}: expected {shape}")
+    return Move(ref, param, start.strip(), stop.strip())
+
 
 @dataclass
 class RenderOptions:
@@ -96,6 +145,10 @@ class RenderOptions:
     solver: str = "compiled"
     quality: str = "default"
     progress: bool = True
+    moves: tuple[Move, ...] = ()  # parameters turned during the kept seconds (--move)
+    # Compute the WAV path (16x oversampled listening signal, levels, clipping). Batches
+    # that only measure (spread, tune) turn it off: it is a third of a render's time.
+    wav: bool = True
 
     def check(self) -> None:
         if not (self.seconds > 0 and math.isfinite(self.seconds)):
@@ -110,6 +163,9 @@ class RenderOptions:
             raise UsageError(f"Unknown quality {self.quality!r} (choices: {', '.join(QUALITIES)})")
         if not self.full_scale_volts > 0:
             raise UsageError(f"--full-scale must be positive, got {self.full_scale_volts!r}")
+        keys = [move.key for move in self.moves]
+        if len(set(keys)) != len(keys):
+            raise UsageError(f"--move names a parameter twice ({', '.join(keys)}): give each once")
 
     def step_options(self) -> StepOptions:
         rtol = QUALITIES[self.quality]
@@ -392,12 +448,159 @@ def output_report(patch, gate_amps: np.ndarray | None, vdd_volts: np.ndarray,
     return out
 
 
-def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label: str = ""):
-    """Compile and run ``patch`` for settle + seconds; returns (circuit, trace)."""
+# ---------------------------------------------------------------------------------
+# moving parameters (--move)
+
+
+def numeric_param(patch, ref: str, name: str, label: str, action: str):
+    """``(part, kind, param)`` of the numeric parameter ``ref.name`` of ``patch``.
+
+    For commands that vary one parameter (``--move``, ``halfrail sweep``): raises
+    PatchError naming the file and the part, starting with ``label`` (``--move
+    RV1.taper=lin:log``), when the part or parameter is unknown or the parameter is a
+    choice or text; ``action`` says what only a number can do (``move``).
+    """
+    from sim.patch import SUPPLY
+
+    display = patch._source.display if patch._source is not None else patch.path
+    part = patch.supply if ref == SUPPLY else patch.parts.get(ref)
+    if part is None:
+        raise PatchError(f"{label}: no part {ref} (parts: {', '.join([SUPPLY, *patch.parts])})",
+                         file=display)
+    kind = blocks.REGISTRY[part.kind]
+    numeric = ", ".join(p.name for p in kind.params if not p.text and p.choices is None)
+    if name not in kind.param_names:
+        raise PatchError(f"{label}: {ref} ({kind.name}) has no parameter '{name}' (numeric "
+                         f"parameters: {numeric})", file=display, part=ref)
+    param = kind.param(name)
+    if param.choices is not None or param.text:
+        what = f"a choice ({', '.join(param.choices)})" if param.choices is not None else "text"
+        raise PatchError(f"{label}: {name} is {what}; only a number can {action} (numeric "
+                         f"parameters of a {kind.name}: {numeric})", file=display, part=ref)
+    return part, kind, param
+
+
+def _move_error(patch, move: Move, message: str) -> PatchError:
+    display = patch._source.display if patch._source is not None else patch.path
+    return PatchError(f"--move {move}: {message}", file=display, part=move.ref)
+
+
+def prepare_moves(patch, opts: RenderOptions) -> tuple[object, tuple[Automation, ...]]:
+    """The patch at the moves' start values and the automation that turns them.
+
+    Each :class:`Move` of ``opts.moves`` holds its start value from power-on to
+    ``opts.settle`` and reaches its stop value at ``settle + seconds``, linearly in
+    between (:class:`sim.simulate.Automation`, applied inside the stepper). Only
+    numeric parameters that the stepper reads at every step can move: a choice or
+    text, a gate's parameter (the report reads the gates back as fixed), the ohms that
+    scale a listened current, or a value that sets a capacitance, an inductance, file
+    data or the longest step (fixed once compiled) raise PatchError naming the part.
+    Returns ``(patch, ())`` when nothing moves.
+    """
+    if not opts.moves:
+        return patch, ()
+    from sim.patch import resolve_value
+
+    starts: dict[str, str] = {}
+    automation = []
+    for move in opts.moves:
+        part, _, param = numeric_param(patch, move.ref, move.param, f"--move {move}", "move")
+        if part.kind == GATE_KIND:
+            raise _move_error(patch, move, "a gate's parameters stay fixed within a render "
+                              "(its output currents are read back from them); compare "
+                              "values with halfrail sweep instead")
+        if move.ref == patch.listen.part and LISTEN_CURRENT_OHMS.get(part.kind) == move.param:
+            raise _move_error(patch, move, f"{move.param} scales the listened current into "
+                              "the WAV, so it stays fixed within a render; step it with "
+                              "halfrail sweep instead")
+        try:
+            v0, v1 = (resolve_value(param, raw) for raw in (move.start, move.stop))
+        except ValueError as error:
+            raise _move_error(patch, move, str(error)) from error
+        starts[move.key] = move.start
+        automation.append(Automation(move.ref, move.param, opts.settle,
+                                     opts.settle + opts.seconds, v0, v1))
+    at_start = patch.variant(starts)
+    fixed = compile_patch(at_start)
+    for move in opts.moves:
+        other = compile_patch(at_start.variant({move.key: move.stop}))
+        if not (np.array_equal(fixed.mass, other.mass) and np.array_equal(fixed.df, other.df)
+                and fixed.max_step_seconds == other.max_step_seconds):
+            raise _move_error(patch, move, f"{move.param} sets a capacitance, an inductance, "
+                              "file data or the solver's longest step, which stay fixed "
+                              "within a render; step it with halfrail sweep instead")
+    return at_start, tuple(automation)
+
+
+def moving_supply_amps(times, vdd_volts, values: dict, automation) -> np.ndarray:
+    """Battery current (A), shape (m,), like :func:`blocks.supply.supply_amps`, with the
+    supply's own parameters moving as ``automation`` turns them (times (m,) in s)."""
+    from blocks.supply import supply_amps
+
+    moving = {a.param: a for a in automation if a.ref == "supply"}
+    if not moving:
+        return supply_amps(times, vdd_volts, values)
+
+    def at(name: str):
+        a = moving.get(name)
+        if a is None:
+            return float(values[name])
+        return np.interp(times, (a.t0, a.t1), (a.value0, a.value1))
+
+    # The EMF is volts times the power-on ramp's fraction (at the ramp's start value).
+    ramp = {**values, "volts": 1.0, "source_ohms": 1.0}
+    if "ramp_seconds" in moving:
+        ramp["ramp_seconds"] = moving["ramp_seconds"].value0
+    fraction = supply_amps(times, np.zeros_like(times), ramp)
+    return (at("volts") * fraction - np.asarray(vdd_volts)) / at("source_ohms")
+
+
+def move_pitch_track(volts, rate_hz: float) -> dict:
+    """Pitch over time of a moving render: ``{"times_s", "freq_hz", "window_seconds"}``.
+
+    volts: (n,) at rate_hz. One point every MOVE_TRACK_HOP_SECONDS, each measured by
+    :func:`sim.measure.find_pitch` on a window centred on it, of the first length of
+    MOVE_TRACK_WINDOWS_SECONDS (starting from the one that last worked) that finds a
+    steady pitch there; after a point without pitch only one length is tried per point,
+    in turn, so a stretch without pitch costs one measure per point. Lists of equal
+    length: times_s from the first sample; freq_hz in Hz and window_seconds, both None
+    where no window finds a pitch.
+    """
+    x = np.asarray(volts, dtype=np.float64)
+    sizes = [int(round(w * rate_hz)) for w in MOVE_TRACK_WINDOWS_SECONDS]
+    hop = int(round(MOVE_TRACK_HOP_SECONDS * rate_hz))
+    times, freqs, windows = [], [], []
+    last, misses = 0, 0
+    for centre in range(sizes[0] // 2, x.size - sizes[0] // 2 + 1, hop):
+        tried = sorted(range(len(sizes)), key=lambda i: (abs(i - last), -i))
+        if misses:  # in a stretch without pitch, one window per point, taking turns
+            tried = [misses % len(sizes)]
+        found = None
+        for i in tried:
+            lo, hi = centre - sizes[i] // 2, centre + sizes[i] - sizes[i] // 2
+            if lo < 0 or hi > x.size:
+                continue
+            pitch = measure.find_pitch(x[lo:hi], rate_hz)
+            if pitch is not None:
+                found, last = (pitch.freq_hz, MOVE_TRACK_WINDOWS_SECONDS[i]), i
+                break
+        misses = 0 if found else misses + 1
+        times.append(centre / rate_hz)
+        freqs.append(found[0] if found else None)
+        windows.append(found[1] if found else None)
+    return {"times_s": times, "freq_hz": freqs, "window_seconds": windows}
+
+
+def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label: str = "",
+                   automation: tuple[Automation, ...] = ()):
+    """Compile and run ``patch`` for settle + seconds; returns (circuit, trace).
+
+    automation: parameters moving in time (see :func:`prepare_moves`).
+    """
     circuit = compile_patch(patch)
     total = opts.settle + opts.seconds
     if opts.solver == "reference":
-        return circuit, simulate_reference(circuit, total, record)
+        return circuit, simulate_reference(circuit, total, record, automation=automation)
     bar = None
     progress = None
     if opts.progress and total > PROGRESS_ABOVE_SECONDS:
@@ -411,7 +614,8 @@ def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label
             bar.refresh()
 
     try:
-        trace = simulate(circuit, total, record, opts.step_options(), progress=progress)
+        trace = simulate(circuit, total, record, opts.step_options(), automation=automation,
+                         progress=progress)
     finally:
         if bar is not None:
             bar.close()
@@ -426,12 +630,13 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     """
     opts = opts or RenderOptions()
     opts.check()
-    from blocks.supply import supply_amps
+    as_given = patch
+    patch, automation = prepare_moves(patch, opts)
 
     current = listened_current(patch)  # a wrong listen: fails before the simulation
     record = list(dict.fromkeys([*patch.probes, *patch.listen.nets, "vdd",
                                  *([current[0]] if current else []), *load_record_names(patch)]))
-    circuit, trace = simulate_patch(patch, opts, record)
+    circuit, trace = simulate_patch(patch, opts, record, automation=automation)
     fine_rate = opts.rate_hz * OVERSAMPLE
     times, y = trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)
     values = {name: y[:, j] for j, name in enumerate(record)}
@@ -440,27 +645,32 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     gate_amps = (gate_trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)[1]
                  if gate_trace is not None else None)
     warnings = supply_warnings(float(patch.supply.values["volts"]))
+    for a in automation:
+        if (a.ref, a.param) == ("supply", "volts"):
+            warnings += [w for w in supply_warnings(a.value1) if w not in warnings]
 
     probes = {net: measure.measure_signal(values[net], fine_rate) for net in patch.probes}
     listen_fine = listen_signal(patch, circuit, values)
     listen_report = measure.measure_signal(listen_fine, fine_rate)
-    amps = supply_amps(times, values["vdd"], patch.supply.values)
+    amps = moving_supply_amps(times, values["vdd"], patch.supply.values, automation)
     supply = {"mean_ma": float(np.mean(amps) * 1e3), "peak_ma": float(np.max(amps) * 1e3),
               "volts_min": float(np.min(values["vdd"]))}
     speakers = speaker_report(patch, values, warnings)
     outputs = output_report(patch, gate_amps, values["vdd"], warnings)
 
-    listen_audio = listen_audio_volts(patch, circuit, trace, record, opts.settle,
-                                      opts.settle + opts.seconds, opts.rate_hz)
-    samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
-                                         normalize=opts.normalize, rate_hz=opts.rate_hz)
-    if info["clipped_samples"]:
-        warnings.append(f"the WAV clipped {info['clipped_samples']} samples: the listening signal "
-                        f"exceeds the {opts.full_scale_volts:g} V full scale (use --full-scale or "
-                        "--normalize)")
-    loud = audio.first_play_warning(info)
-    if loud:
-        warnings.append(loud)
+    listen_audio, samples, info = None, None, None
+    if opts.wav:
+        listen_audio = listen_audio_volts(patch, circuit, trace, record, opts.settle,
+                                          opts.settle + opts.seconds, opts.rate_hz)
+        samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
+                                             normalize=opts.normalize, rate_hz=opts.rate_hz)
+        if info["clipped_samples"]:
+            warnings.append(f"the WAV clipped {info['clipped_samples']} samples: the listening "
+                            f"signal exceeds the {opts.full_scale_volts:g} V full scale (use "
+                            "--full-scale or --normalize)")
+        loud = audio.first_play_warning(info)
+        if loud:
+            warnings.append(loud)
 
     report = {
         "patch": patch.name,
@@ -473,15 +683,21 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
         "speakers": speakers,
         "outputs": outputs,
         "warnings": warnings,
-        "audio": {"full_scale_volts": opts.full_scale_volts, **info},
+        "audio": {"full_scale_volts": opts.full_scale_volts, **info} if info else None,
         "settle_seconds": opts.settle,
-        "overrides": list(getattr(patch, "overrides", ())),
+        "overrides": list(getattr(as_given, "overrides", ())),
         "solver": {"name": trace.solver, **trace.counters},
     }
+    if automation:
+        report["moves"] = [{"param": f"{a.ref}.{a.param}", "start": a.value0, "stop": a.value1,
+                            "from_seconds": a.t0, "to_seconds": a.t1} for a in automation]
+        report["pitch_track"] = move_pitch_track(listen_fine, fine_rate)
     result = Rendered(report=report, times=times, signals=values, listen=listen_fine,
                       sample_rate_hz=fine_rate, audio_volts=listen_audio)
     if not write:
         return result
+    if not opts.wav:
+        raise UsageError("a render written to files needs its WAV path (RenderOptions.wav)")
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     base = out / patch.name
@@ -493,6 +709,8 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
         span = max(PLOT_MIN_SECONDS, PLOT_PERIODS / listen_report["freq_hz"])
     shown = times < times[0] + span
     title = f"{patch.name}: {_pitch_text(listen_report)} at {listen_label(patch)}"
+    if automation:
+        title = f"{patch.name}: {_move_text(report)} at {listen_label(patch)}"
     subtitle = (f"supply {patch.supply.values['volts']:g} V, {supply['mean_ma']:.2f} mA mean; "
                 f"from {opts.settle * 1e3:g} ms after power-on")
     plots.waveform_plot(png, times[shown] - opts.settle,
@@ -511,3 +729,12 @@ def _pitch_text(m: dict) -> str:
     if not m.get("freq_hz"):
         return "no steady pitch"
     return f"{m['freq_hz']:.2f} Hz = {m['note']} {m['cents']:+.1f} cents"
+
+
+def _move_text(report: dict) -> str:
+    """``RV1.position 0 to 1, pitch 310.2 to 620.9 Hz`` for a moving render's report."""
+    moved = ", ".join(f"{m['param']} {m['start']:.4g} to {m['stop']:.4g}" for m in report["moves"])
+    found = [f for f in report["pitch_track"]["freq_hz"] if f is not None]
+    if not found:
+        return f"{moved}, no steady pitch"
+    return f"{moved}, pitch {found[0]:.1f} to {found[-1]:.1f} Hz"
