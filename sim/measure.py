@@ -272,7 +272,8 @@ def _partners(times: np.ndarray, period: float) -> tuple[np.ndarray, np.ndarray]
     return pick, np.abs(times[pick] - target)
 
 
-def _chain_unsteadiness(chain: np.ndarray) -> str | None:
+def _chain_unsteadiness(chain: np.ndarray, drift_limit_cents: float = DRIFT_LIMIT_CENTS
+                        ) -> str | None:
     """Why one chain of aligned crossing times (samples) is not steady, or ``None``."""
     periods = np.diff(chain)
     if periods.size < MIN_PERIODS:
@@ -283,7 +284,7 @@ def _chain_unsteadiness(chain: np.ndarray) -> str | None:
         return f"periods scatter by {100.0 * np.std(periods) / mean:.2g} %"
     third = max(1, periods.size // 3)
     drift = 1200.0 * math.log2(np.mean(periods[:third]) / np.mean(periods[-third:]))
-    if abs(drift) > DRIFT_LIMIT_CENTS:
+    if abs(drift) > drift_limit_cents:
         return f"pitch drifts by {drift:+.3g} cents from the first to the last third"
     return None
 
@@ -295,16 +296,18 @@ def _chain_period(chain: np.ndarray) -> float:
     return float(np.dot(count, chain - chain.mean()) / np.dot(count, count))
 
 
-def find_pitch(volts, rate_hz: float) -> Pitch | None:
+def find_pitch(volts, rate_hz: float, drift_limit_cents: float = DRIFT_LIMIT_CENTS
+               ) -> Pitch | None:
     """Steady pitch of ``volts`` (shape ``(n,)``, sampled at ``rate_hz``), or ``None``.
 
     See the module docstring for the method and the steadiness rule.
     """
-    found = pitch_or_reason(volts, rate_hz)
+    found = pitch_or_reason(volts, rate_hz, drift_limit_cents)
     return found if isinstance(found, Pitch) else None
 
 
-def pitch_or_reason(volts, rate_hz: float) -> Pitch | str:
+def pitch_or_reason(volts, rate_hz: float, drift_limit_cents: float = DRIFT_LIMIT_CENTS
+                    ) -> Pitch | str:
     """Like :func:`find_pitch`, but say why there is no steady pitch (a short text)."""
     x, rate = _as_signal(volts, rate_hz)
     vmin, vmax = float(np.min(x)), float(np.max(x))
@@ -353,7 +356,7 @@ def pitch_or_reason(volts, rate_hz: float) -> Pitch | str:
     aligned = times[:last + k + 1]
     chains = [aligned[c::k] for c in range(k)]
     for chain in chains:
-        reason = _chain_unsteadiness(chain)
+        reason = _chain_unsteadiness(chain, drift_limit_cents)
         if reason is not None:
             return reason
     mean_period = float(np.mean([_chain_period(chain) for chain in chains]))

@@ -555,6 +555,13 @@ def moving_supply_amps(times, vdd_volts, values: dict, automation) -> np.ndarray
     return (at("volts") * fraction - np.asarray(vdd_volts)) / at("source_ohms")
 
 
+#: A moving render glides: inside one tracking window its pitch may change by up to this
+#: much between the window's first and last third (a semitone) and still be tracked;
+#: the window's mean pitch is then its centre's pitch to within a few cents, because a
+#: slow glide is close to linear over a window of a few periods.
+GLIDE_DRIFT_LIMIT_CENTS = 100.0
+
+
 def move_pitch_track(volts, rate_hz: float) -> dict:
     """Pitch over time of a moving render: ``{"times_s", "freq_hz", "window_seconds"}``.
 
@@ -580,7 +587,7 @@ def move_pitch_track(volts, rate_hz: float) -> dict:
             lo, hi = centre - sizes[i] // 2, centre + sizes[i] - sizes[i] // 2
             if lo < 0 or hi > x.size:
                 continue
-            pitch = measure.find_pitch(x[lo:hi], rate_hz)
+            pitch = measure.find_pitch(x[lo:hi], rate_hz, GLIDE_DRIFT_LIMIT_CENTS)
             if pitch is not None:
                 found, last = (pitch.freq_hz, MOVE_TRACK_WINDOWS_SECONDS[i]), i
                 break
