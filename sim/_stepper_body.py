@@ -15,6 +15,23 @@ Method
   predictor (Milne's device), weighted per unknown: "slow" unknowns (carrying a part's
   capacitance or inductance) at the asked tolerance, "fast" ones (only stray
   capacitance, i.e. algebraic in practice) at ``fast_factor`` times looser.
+- Step size: Gustafsson's predictive controller on accepted steps in normal mode
+  (Hairer & Wanner, Solving ODEs II, IV.8, eq. 8.21): the step follows a rising error
+  (a flip's slow passage) instead of overshooting and being rejected.
+- Newton stops when its last update times the contraction rate remembered from the
+  previous iterations (decaying by ``RATE_DECAY`` when measured) is below the Newton
+  tolerance, as CVODE's corrector test does: one evaluation per step in smooth stretches.
+  The remembered rate counts at least ``newton_rate_floor`` (0.05: a clamp diode that
+  starts to conduct within a step then still gets its second iteration). Newton starts
+  from the quadratic extrapolation (as the error estimate's predictor), not the linear
+  one, so the first update is small. Not in recovery, nor while the error test does not
+  watch the fast unknowns (below).
+- Flips: an accepted normal step in which a fast unknown (no part capacitance) moved by
+  more than ``flip_volts`` at more than ``flip_slew`` volts per second is the regenerative
+  part of a flip: recovery mode (below) takes over at once, and until the step has grown
+  back to ``RELAX_SECONDS`` the error of fast unknowns is weighted by ``recover_weight``
+  (their nanosecond transient is inaudible; the flip's timing was decided during the
+  slow passage, resolved at full tolerance).
 - Events: a step whose Newton iteration fails, or whose solution jumps by more than
   ``jump_volts`` from the predictor, contains a flip of a regenerative loop (a Schmitt
   trigger switching). The step is bisected until the flip instant is bracketed to
@@ -41,7 +58,12 @@ O_GROWTH = 7
 O_NEWTON_FRAC = 8
 O_DV_MAX = 9
 O_H_RESTART = 10
-O_SIZE = 11
+O_RECOVER_WEIGHT = 11
+O_FLIP_VOLTS = 12
+O_FLIP_SLEW = 13
+O_RATE_FLOOR = 14
+O_QUAD_GUESS = 15
+O_SIZE = 16
 
 # state vector ``st``
 S_T = 0
@@ -53,12 +75,16 @@ S_MODE = 5
 S_HGOAL = 6
 S_FAIL_INDEX = 7
 S_HNORMAL = 8
-S_SIZE = 9
+S_ERR_OLD = 9  # error norm of the last accepted normal step (0: none)
+S_RATE = 10  # Newton contraction rate remembered across steps
+S_RELAX = 11  # 1.0 after a flip until the step is back to RELAX_SECONDS
+S_SIZE = 12
 
 # per-unknown table ``unk`` columns
 U_ATOL = 0
 U_WEIGHT = 1
 U_VOLT = 2
+U_SLOW = 3  # 1.0 where a part's capacitance or inductance sits on the unknown
 
 # counters ``cnt``
 K_STEPS = 0
@@ -85,8 +111,20 @@ MAX_GROWTH = 2.0
 MIN_SHRINK = 0.2
 #: Safety factor on the optimal step predicted from the error estimate.
 SAFETY = 0.9
+#: After a flip the error of fast unknowns is relaxed until the step has grown to this:
+#: their transients (stray capacitance against kilohms, at most a few hundred ns) are
+#: over by then, and fast unknowns that carry a slow one's current (a diode in the
+#: integrator's path) are watched again before they matter (measured: relaxing until
+#: the fast error is back within tolerance instead costs 5 cents on the saw scenario).
+RELAX_SECONDS = 10e-6
+#: Smallest error norm remembered for the predictive controller (keeps the trend
+#: factor finite after an exact step).
+ERR_FLOOR = 1e-4
 #: Shrink factor after Newton's method fails outside an event.
 NEWTON_SHRINK = 0.25
+#: The remembered Newton contraction rate decays by this factor each time it is measured
+#: (CVODE's CRDOWN), so one slow iteration does not make every later step iterate twice.
+RATE_DECAY = 0.3
 
 
 @numba.njit(cache=True)
@@ -143,11 +181,13 @@ def apply_automation(pf, auto, t):
 
 
 @numba.njit(cache=True)
-def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jump_v, cnt):
+def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jump_v, cnt, st):
     """Solve M (a0 xn + c) + f(xn, t_new) = 0 for xn (in place, starting from xn).
 
     Returns (outcome, worst unknown index). ``jump_v`` > 0 makes an iterate farther than
-    that from ``xref`` (volts) end the iteration as N_JUMPED.
+    that from ``xref`` (volts) end the iteration as N_JUMPED; it also marks normal mode,
+    where (unless st[S_RELAX]) the iteration may stop once its update times the
+    contraction rate remembered in st[S_RATE] is below the tolerance.
     """
     n = xn.shape[0]
     rtol = opt[O_RTOL] * opt[O_NEWTON_FRAC]
@@ -155,6 +195,7 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jum
     dv_max = opt[O_DV_MAX]
     max_iter = int(opt[O_MAX_ITER])
     worst = 1
+    conv_prev = -1.0
     for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
         evaluate(xn, t_new, pf, nf, tab, df, f, G)
@@ -195,8 +236,14 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jum
             return N_FAILED, worst
         if jump_v > 0.0 and dev > jump_v:
             return N_JUMPED, worst
-        if conv <= 1.0 and scale == 1.0:
+        if scale == 1.0 and conv_prev > 0.0:
+            st[S_RATE] = max(RATE_DECAY * st[S_RATE], conv / conv_prev)
+        rate = 1.0
+        if jump_v > 0.0 and st[S_RELAX] == 0.0:
+            rate = min(1.0, max(st[S_RATE], opt[O_RATE_FLOOR]))
+        if scale == 1.0 and conv * rate <= 1.0:
             return N_OK, worst
+        conv_prev = conv if scale == 1.0 else -1.0
     return N_FAILED, worst
 
 
@@ -232,16 +279,33 @@ def _predict(nh, h, h1, x, x1, xp):
 
 
 @numba.njit(cache=True)
+def _extrapolate2(h, h1, h2, x, x1, x2, out):
+    """Quadratic through (-h1-h2, x2), (-h1, x1), (0, x), evaluated at h, into ``out``."""
+    ta = -(h1 + h2)
+    tb = -h1
+    la = (h * (h - tb)) / (ta * (ta - tb))
+    lb = (h * (h - ta)) / (tb * (tb - ta))
+    lc = ((h - ta) * (h - tb)) / (ta * tb)
+    for i in range(x.shape[0]):
+        out[i] = la * x2[i] + lb * x1[i] + lc * x[i]
+
+
+@numba.njit(cache=True)
 def _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df, unk, opt, auto,
-             f, G, J, r, jump_v, cnt):
+             f, G, J, r, jump_v, cnt, st, x2):
     """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst)."""
     apply_automation(pf, auto, t + h)
     _predict(nh, h, h1, x, x1, xp)
     a0 = _coefficients(order, h, h1, x, x1, c)
-    for i in range(x.shape[0]):
-        xn[i] = xp[i]
+    if order == 2 and nh >= 2 and opt[O_QUAD_GUESS] > 0.0:
+        # Newton starts from the quadratic extrapolation (the error estimate's), closer
+        # than the linear predictor ``xp`` that the jump test compares with
+        _extrapolate2(h, h1, st[S_H2], x, x1, x2, xn)
+    else:
+        for i in range(x.shape[0]):
+            xn[i] = xp[i]
     outcome, worst = newton(xn, t + h, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r,
-                            xp, jump_v, cnt)
+                            xp, jump_v, cnt, st)
     if outcome == N_OK and jump_v > 0.0:
         for i in range(1, x.shape[0]):
             if unk[i, U_VOLT] > 0.0 and abs(xn[i] - xp[i]) > jump_v:
@@ -250,10 +314,19 @@ def _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df, unk, opt
 
 
 @numba.njit(cache=True)
-def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted):
+def _weight(unk, i, weighted, relax_weight):
+    """Error weight of unknown i (see _error_norm)."""
+    if relax_weight > 0.0 and unk[i, U_SLOW] == 0.0:
+        return relax_weight
+    return unk[i, U_WEIGHT] if weighted else 1.0
+
+
+@numba.njit(cache=True)
+def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted, relax_weight):
     """Weighted max-norm of the local error estimate (1.0 = at tolerance).
 
-    ``weighted`` False holds every unknown to the full tolerance."""
+    ``weighted`` False holds every unknown to the full tolerance. ``relax_weight`` > 0
+    (after a flip) weights the error of fast unknowns (no part capacitance) by it instead."""
     n = x.shape[0]
     err = 0.0
     if order == 2:
@@ -267,7 +340,7 @@ def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted):
         fac = fac / (1.0 + fac)
         for i in range(1, n):
             p = la * x2[i] + lb * x1[i] + lc * x[i]
-            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (
+            scale = _weight(unk, i, weighted, relax_weight) * (
                 unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
             e = abs(xn[i] - p) * fac / scale
             if e > err:
@@ -275,7 +348,7 @@ def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted):
     else:
         fac = h / (2.0 * h + h1)
         for i in range(1, n):
-            scale = (unk[i, U_WEIGHT] if weighted else 1.0) * (
+            scale = _weight(unk, i, weighted, relax_weight) * (
                 unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
             e = abs(xn[i] - xp[i]) * fac / scale
             if e > err:
@@ -299,6 +372,18 @@ def _accept(st, t_new, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, order):
         out_y[k, j] = x[rec[j]]
     out_o[k] = order
     return k + 1
+
+
+@numba.njit(cache=True)
+def _flipping(x, x1, h, unk, opt):
+    """True when a fast voltage unknown moved by more than opt[O_FLIP_VOLTS] in the step
+    just accepted (x1 -> x, size h) at more than opt[O_FLIP_SLEW] volts per second."""
+    for i in range(1, x.shape[0]):
+        if unk[i, U_SLOW] == 0.0 and unk[i, U_VOLT] > 0.0:
+            dv = abs(x[i] - x1[i])
+            if dv > opt[O_FLIP_VOLTS] and dv > opt[O_FLIP_SLEW] * h:
+                return True
+    return False
 
 
 @numba.njit(cache=True)
@@ -347,7 +432,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
         jv = jump_v if mode == MODE_NORMAL else 0.0
         outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df,
-                                  unk, opt, auto, f, G, J, r, jv, cnt)
+                                  unk, opt, auto, f, G, J, r, jv, cnt, st, x2)
         if mode == MODE_NORMAL and outcome != N_OK:
             if h > event_dt:
                 # A flip inside (t, t+h]: bracket it by bisection.
@@ -358,7 +443,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                     mid = 0.5 * (lo + hi)
                     cnt[K_TRIALS] += 1
                     o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, c, M, pf, nf, tab,
-                                      df, unk, opt, auto, f, G, J, r, jump_v, cnt)
+                                      df, unk, opt, auto, f, G, J, r, jump_v, cnt, st, x2)
                     if o2 == N_OK:
                         lo = mid
                         have_lo = True
@@ -401,7 +486,9 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         if nh >= 1:
             # Error control in both modes; in recovery (backward Euler across a flip)
             # the step may grow faster, by ``growth``, as the transient dies out.
-            err = _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, mode == MODE_NORMAL)
+            relax = opt[O_RECOVER_WEIGHT] if st[S_RELAX] > 0.0 else 0.0
+            err = _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, mode == MODE_NORMAL,
+                              relax)
             expo = 1.0 / (order + 1.0)
             if err > 1.0:
                 cnt[K_REJECT_ERROR] += 1
@@ -413,11 +500,18 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
             top = MAX_GROWTH if mode == MODE_NORMAL else growth
             if err > 0.0:
                 fac = min(top, max(MIN_SHRINK, SAFETY * err ** (-expo)))
+                if mode == MODE_NORMAL and st[S_ERR_OLD] > 0.0:
+                    # Gustafsson: also follow the trend of the error from the last step
+                    trend = SAFETY * err ** (-expo) * (h / h1) * (st[S_ERR_OLD] / err) ** expo
+                    fac = max(MIN_SHRINK, min(fac, trend))
             else:
                 fac = top
+            st[S_ERR_OLD] = max(err, ERR_FLOOR) if mode == MODE_NORMAL else 0.0
         k = _accept(st, t + h, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k,
                     order if mode == MODE_NORMAL else 1)
         cnt[K_STEPS] += 1
+        if st[S_RELAX] > 0.0 and h >= RELAX_SECONDS:
+            st[S_RELAX] = 0.0
         if mode == MODE_RECOVER:
             hn = h * fac
             # Back to BDF2 once the step is back where it was, or as soon as the error
@@ -430,6 +524,13 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         else:
             st[S_HNORMAL] = h
             st[S_H] = h * fac
+            if opt[O_FLIP_VOLTS] > 0.0 and st[S_RELAX] == 0.0 and _flipping(x, x1, h, unk, opt):
+                # the regenerative part of a flip: recover with BE, fast unknowns relaxed
+                cnt[K_EVENTS] += 1
+                st[S_MODE] = MODE_RECOVER
+                st[S_RELAX] = 1.0
+                st[S_HGOAL] = hmax
+                st[S_ERR_OLD] = 0.0
 
 
 @numba.njit(cache=True)

@@ -35,6 +35,17 @@ class StepOptions:
     growth: step growth per recovery step after a flip.
     restart_seconds: first step after a flip; of the order of the regenerative time
         constant (stray capacitance over a gate's transconductance, 2 pF / 2 mS = 1 ns).
+    flip_volts, flip_slew_volts_per_second: an accepted step in which a fast net moved by
+        more than flip_volts, faster than flip_slew, is the regenerative part of a flip:
+        backward Euler steps over it with the fast nets' error weighted by
+        recover_weight (1e4: not watched) until the step is back to 10 us. The flip's
+        timing was decided before, in its slow passage, at full tolerance.
+    newton_rate_floor: Newton's method may stop after one iteration when its remembered
+        contraction rate times the update is within tolerance (the corrector test of
+        CVODE); the rate counts as at least this much.
+    quadratic_guess: Newton starts from the quadratic extrapolation of the last points.
+    Measured on the oscillator scenario (813 flips/s): these four cut Newton iterations
+    from 384k to 137k per second of audio at the same pitch (+0.09 cent vs Radau).
     """
 
     rtol: float = 3e-4
@@ -51,6 +62,11 @@ class StepOptions:
     restart_seconds: float = 1e-9
     max_newton_iterations: int = 10
     newton_fraction: float = 0.3
+    recover_weight: float = 1e4
+    flip_volts: float = 0.2
+    flip_slew_volts_per_second: float = 1e7
+    newton_rate_floor: float = 0.05
+    quadratic_guess: bool = True
     chunk_seconds: float = 0.05
 
 
@@ -85,10 +101,11 @@ def _automation_table(circuit: Circuit, automation) -> np.ndarray:
 
 
 def _unknown_table(circuit: Circuit, opts: StepOptions) -> np.ndarray:
-    unk = np.zeros((circuit.size, 3))
+    unk = np.zeros((circuit.size, 4))
     unk[:, 0] = np.where(circuit.is_volt, opts.atol_volts, opts.atol_volts * AMPS_PER_VOLT_TOLERANCE)
     unk[:, 1] = np.where(circuit.slow, 1.0, opts.fast_factor)
     unk[:, 2] = circuit.is_volt.astype(float)
+    unk[:, 3] = circuit.slow.astype(float)
     return unk
 
 
@@ -116,12 +133,18 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
     opt[k.O_H_RESTART] = opts.restart_seconds
     opt[k.O_NEWTON_FRAC] = opts.newton_fraction
     opt[k.O_DV_MAX] = max(1.0, NEWTON_STEP_FRACTION * circuit.supply_volts)
+    opt[k.O_RECOVER_WEIGHT] = opts.recover_weight
+    opt[k.O_FLIP_VOLTS] = opts.flip_volts
+    opt[k.O_FLIP_SLEW] = opts.flip_slew_volts_per_second
+    opt[k.O_RATE_FLOOR] = opts.newton_rate_floor
+    opt[k.O_QUAD_GUESS] = float(opts.quadratic_guess)
     st = np.zeros(k.S_SIZE)
     st[k.S_H] = opts.restart_seconds
     st[k.S_H1] = opts.restart_seconds
     st[k.S_MODE] = k.MODE_RECOVER
     st[k.S_HGOAL] = hmax
     st[k.S_HNORMAL] = hmax
+    st[k.S_RATE] = 1.0
     x = np.zeros(n)
     x1 = np.zeros(n)
     x2 = np.zeros(n)
