@@ -117,6 +117,9 @@ GRID_JITTER_SAMPLES = 0.5
 #: memory), and well above the measurement scatter of a steady tone.  A chirp of
 #: 1 % (17 cents) over the record already fails it.
 DRIFT_LIMIT_CENTS = 5.0
+#: Longest stretch (s) the harmonic levels are measured over: a second of whole periods
+#: resolves harmonics far below -80 dB already; longer records only cost time.
+HARMONICS_MAX_SECONDS = 1.0
 #: Number of harmonics reported (1 = fundamental).
 N_HARMONICS = 10
 #: Lowest level reported for a harmonic, in dB relative to the fundamental: lower
@@ -472,7 +475,12 @@ def measure_signal(volts, rate_hz: float) -> dict:
     if pitch is None:
         return result
     name, cents = note_of(pitch.freq_hz)
-    amplitudes = harmonic_amplitudes(x, rate, pitch.freq_hz, pitch.start, pitch.end)
+    # harmonics over at most HARMONICS_MAX_SECONDS of whole periods (from the start)
+    period = rate / pitch.freq_hz
+    periods = (pitch.end - pitch.start) / period
+    span = min(round(periods), max(2, int(HARMONICS_MAX_SECONDS * rate / period)))
+    amplitudes = harmonic_amplitudes(x, rate, pitch.freq_hz, pitch.start,
+                                     pitch.start + span * period)
     levels, thd_pct = harmonic_levels(amplitudes)
     result.update(freq_hz=pitch.freq_hz, note=name, cents=cents,
                   duty=duty_cycle(x, pitch.mid, pitch.start, pitch.end),

@@ -246,6 +246,9 @@ def listen_audio_volts(patch, circuit: Circuit, trace, record: list[str], t_star
     result does not depend on the chunking.
     """
     over = AUDIO_OVERSAMPLE
+    current = listened_current(patch)
+    needed = [current[0]] if current else [n for n in patch.listen.nets if n != GROUND]
+    columns = [record.index(name) for name in needed]
     count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
     margin = audio.antialias_taps(over).size // over + 2
     chunk = max(1, int(AUDIO_CHUNK_SECONDS * rate_hz))
@@ -253,8 +256,9 @@ def listen_audio_volts(patch, circuit: Circuit, trace, record: list[str], t_star
     for a in range(0, count, chunk):
         b = min(count, a + chunk)
         lo, hi = max(0, a - margin), min(count, b + margin)
-        _, y = trace.uniform(rate_hz * over, t_start + lo / rate_hz, t_start + hi / rate_hz)
-        values = {name: y[:, j] for j, name in enumerate(record)}
+        _, y = trace.uniform(rate_hz * over, t_start + lo / rate_hz, t_start + hi / rate_hz,
+                             columns)
+        values = {name: y[:, j] for j, name in enumerate(needed)}
         values[GROUND] = np.zeros(y.shape[0])
         part = audio.decimate(listen_signal(patch, circuit, values), over)
         out[a:b] = part[a - lo:a - lo + (b - a)]

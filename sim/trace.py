@@ -97,15 +97,19 @@ class StepTrace:
     def column(self, name: str) -> int:
         return self.names.index(name)
 
-    def uniform(self, rate_hz: float, t_start: float, t_stop: float) -> tuple[np.ndarray, np.ndarray]:
-        """Sample times (s) and (count, m) interval averages on a uniform grid."""
+    def uniform(self, rate_hz: float, t_start: float, t_stop: float,
+                columns: list[int] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Sample times (s) and (count, m) interval averages on a uniform grid.
+
+        columns: indices into ``names`` to read (default all, m = len(names))."""
         d = 1.0 / rate_hz
         first = t_start + 0.5 * d
         count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
         grid = first + d * np.arange(count)
+        values = self.values if columns is None else self.values[:, columns]
         if count <= 0:
-            return grid, np.zeros((0, len(self.names)))
-        out = box_average(self.times, np.ascontiguousarray(self.values), self.order, first,
+            return grid, np.zeros((0, values.shape[1]))
+        out = box_average(self.times, np.ascontiguousarray(values), self.order, first,
                           float(rate_hz), count)
         return grid, out
 
@@ -124,8 +128,9 @@ class DenseTrace:
     def column(self, name: str) -> int:
         return self.names.index(name)
 
-    def uniform(self, rate_hz: float, t_start: float, t_stop: float) -> tuple[np.ndarray, np.ndarray]:
-        """Point samples at the centres of the same grid as :meth:`StepTrace.uniform`.
+    def uniform(self, rate_hz: float, t_start: float, t_stop: float,
+                columns: list[int] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Interval averages on the same grid as :meth:`StepTrace.uniform`.
 
         The dense output is averaged over each interval with 4-point Gauss-Legendre
         quadrature so both traces describe the same quantity.
@@ -134,13 +139,14 @@ class DenseTrace:
         count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
         grid = t_start + 0.5 * d + d * np.arange(count)
         nodes, weights = np.polynomial.legendre.leggauss(4)
-        out = np.zeros((count, len(self.rows)))
+        rows = self.rows if columns is None else [self.rows[c] for c in columns]
+        out = np.zeros((count, len(rows)))
         chunk = 200_000
         for a in range(0, count, chunk):
             g = grid[a:a + chunk]
             acc = 0.0
             for node, w in zip(nodes, weights):
                 tt = np.clip(g + 0.5 * d * node, 0.0, self.t_end)
-                acc = acc + 0.5 * w * self.sol(tt)[self.rows, :].T
+                acc = acc + 0.5 * w * self.sol(tt)[rows, :].T
             out[a:a + chunk] = acc
         return grid, out
