@@ -185,7 +185,6 @@ def _diff(args) -> int:
 
 
 def _add_sweep_parser(sub, d: RenderOptions) -> None:
-    from sim.runner import LOCAL
     from sim.sweep import STEP_SECONDS
 
     w = sub.add_parser("sweep", help="render a parameter at steps: pitch table, plot, WAV of steps",
@@ -202,23 +201,9 @@ def _add_sweep_parser(sub, d: RenderOptions) -> None:
                    help="START:STOP:COUNT, e.g. 0:1:11, 47k:220k:8 or 9:5:9 (ends included)")
     w.add_argument("--log", action="store_true",
                    help="space the values by equal ratios instead of equal steps")
-    w.add_argument("--probe", metavar="NET",
-                   help="probed net to measure (default: the listening signal)")
     w.add_argument("--battery-mah", type=float, metavar="MAH",
                    help="battery capacity: adds an estimate of battery life")
-    w.add_argument("--workers", type=int, metavar="N",
-                   help="local processes (default: one per core; 1 renders here)")
-    w.add_argument("--executor", default=LOCAL, metavar="local|dask:ADDRESS",
-                   help=f"where the steps run (default {LOCAL}; dask:ADDRESS sends them to "
-                        "an existing Dask scheduler)")
-    w.add_argument("--seconds", type=float, default=STEP_SECONDS, metavar="S",
-                   help=f"seconds kept of each step (default {STEP_SECONDS:g})")
-    w.add_argument("--settle", type=float, default=d.settle, metavar="S",
-                   help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
-    w.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
-    w.add_argument("--set", action="append", default=[], metavar="REF.param=value",
-                   dest="overrides", help="override a part parameter first, e.g. R2.value=120k "
-                                          "(repeatable)")
+    _add_batch_options(w, d, STEP_SECONDS)
     w.add_argument("--rate", type=int, default=d.rate_hz, metavar="HZ",
                    help=f"WAV sample rate (default {d.rate_hz})")
     w.add_argument("--full-scale", type=float, default=d.full_scale_volts, metavar="V",
@@ -226,9 +211,6 @@ def _add_sweep_parser(sub, d: RenderOptions) -> None:
                         f"(default {d.full_scale_volts:g})")
     w.add_argument("--normalize", action="store_true",
                    help="one gain for all steps, the loudest peaking at -1 dBFS")
-    w.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
-                   help="accuracy of the compiled stepper (default: default)")
-    w.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def _sweep(args) -> int:
@@ -254,10 +236,14 @@ def _sweep(args) -> int:
     return 0
 
 
-def _add_batch_options(p, d: RenderOptions) -> None:
-    """Options every command that renders a batch of variants shares (spread, tune)."""
+def _add_batch_options(p, d: RenderOptions, seconds_default: float | None = None) -> None:
+    """Options every command that renders a batch of variants shares (sweep, spread, tune).
+
+    seconds_default: seconds kept of each render (default: spread's BATCH_SECONDS)."""
     from sim.runner import LOCAL
     from sim.spread import BATCH_SECONDS
+
+    seconds = BATCH_SECONDS if seconds_default is None else seconds_default
 
     p.add_argument("--probe", metavar="NET",
                    help="probed net to measure (default: the listening signal)")
@@ -266,8 +252,8 @@ def _add_batch_options(p, d: RenderOptions) -> None:
     p.add_argument("--executor", default=LOCAL, metavar="local|dask:ADDRESS",
                    help=f"where the renders run (default {LOCAL}; dask:ADDRESS sends them to "
                         "an existing Dask scheduler)")
-    p.add_argument("--seconds", type=float, default=BATCH_SECONDS, metavar="S",
-                   help=f"seconds kept of each render (default {BATCH_SECONDS:g})")
+    p.add_argument("--seconds", type=float, default=seconds, metavar="S",
+                   help=f"seconds kept of each render (default {seconds:g})")
     p.add_argument("--settle", type=float, default=d.settle, metavar="S",
                    help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
     p.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
