@@ -38,18 +38,18 @@ def stamp(x, t, P, N, D, f, G):
         branch(f, G, vdd, gnd, g * ((x[vdd] - x[gnd]) - e), g)
 
 
-@numba.njit
-def _emf_array(t_seconds, volts, ramp_seconds):
-    out = np.empty_like(t_seconds)
-    for i in range(t_seconds.shape[0]):
-        out[i] = emf_volts(t_seconds[i], volts, ramp_seconds)
-    return out
+def emf_volts_array(t_seconds, volts, ramp_seconds):
+    """:func:`emf_volts` for an array of times (numpy, no compile at start-up); shape of t."""
+    t = np.asarray(t_seconds, dtype=np.float64)
+    if ramp_seconds <= 0.0:
+        return np.full_like(t, volts)
+    u = np.clip(t / ramp_seconds, 0.0, 1.0)
+    return volts * u * u * (3.0 - 2.0 * u)
 
 
 def supply_amps(t_seconds, vdd_volts, values):
     """Battery current (A), shape (m,), at times ``t_seconds`` (m,) given the vdd net's volts (m,)."""
-    t = np.ascontiguousarray(t_seconds, dtype=np.float64)
-    e = _emf_array(t, float(values["volts"]), float(values["ramp_seconds"]))
+    e = emf_volts_array(t_seconds, float(values["volts"]), float(values["ramp_seconds"]))
     return (e - np.asarray(vdd_volts)) / float(values["source_ohms"])
 
 

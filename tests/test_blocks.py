@@ -350,3 +350,14 @@ def test_a_test_tone_peaks_at_its_volts_a_quarter_period_in(wave):
     row = np.array([source.KIND.row(values) + [0.0, 0.0]])
     peak = source.waveform_volts(0.25e-3, row, 0, np.zeros(0))
     assert peak == pytest.approx(1.5, abs=1e-9)
+
+
+@pytest.mark.parametrize("ramp_seconds", [0.0, 1e-3])
+def test_the_supply_emf_of_reports_is_the_emf_the_solver_uses(ramp_seconds):
+    # The report's battery current uses a numpy copy of the kernel's power-on ramp:
+    # both must give the same EMF at every time (before, during and after the ramp).
+    from blocks.supply import emf_volts, emf_volts_array
+
+    times = np.linspace(-1e-4, 2e-3, 57)
+    expected = [emf_volts(float(t), 9.0, ramp_seconds) for t in times]
+    assert np.allclose(emf_volts_array(times, 9.0, ramp_seconds), expected, rtol=0, atol=1e-12)
