@@ -101,8 +101,7 @@ MODE_RECOVER = 1
 # Newton outcomes
 N_OK = 0
 N_FAILED = 1
-N_JUMPED = 2  # an iterate left the predictor by more than the jump limit (not converged)
-N_JUMPED_CONVERGED = 3  # converged, but to a point that far from the predictor
+N_JUMPED = 2  # an iterate (the last one included) left the predictor by more than the limit
 
 #: Step-size controller: never grow by more than this per step (keeps BDF2's
 #: variable-step formula well inside its zero-stability bound of 1 + sqrt(2)).
@@ -181,8 +180,11 @@ def apply_automation(pf, auto, t):
 
 
 @numba.njit(cache=True)
-def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jump_v, cnt, st):
+def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xref, jump_v, cnt,
+           st):
     """Solve M (a0 xn + c) + f(xn, t_new) = 0 for xn (in place, starting from xn).
+
+    ``v`` (n,) is work space (the derivative a0 xn + c of the current iterate).
 
     Returns (outcome, worst unknown index). ``jump_v`` > 0 makes an iterate farther than
     that from ``xref`` (volts) end the iteration as N_JUMPED; it also marks normal mode,
@@ -199,12 +201,14 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, xref, jum
     for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
         evaluate(xn, t_new, pf, nf, tab, df, f, G)
+        for j in range(1, n):
+            v[j] = a0 * xn[j] + c[j]
         for i in range(1, n):
             s = f[i]
             for j in range(1, n):
                 mij = M[i, j]
                 if mij != 0.0:
-                    s += mij * (a0 * xn[j] + c[j])
+                    s += mij * v[j]
             r[i] = -s
             for j in range(1, n):
                 J[i, j] = a0 * M[i, j] + G[i, j]
@@ -291,26 +295,25 @@ def _extrapolate2(h, h1, h2, x, x1, x2, out):
 
 
 @numba.njit(cache=True)
-def _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df, unk, opt, auto,
-             f, G, J, r, jump_v, cnt, st, x2):
-    """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst)."""
+def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, nf, tab, df, unk, opt, auto,
+             f, G, J, r, v, jump_v, cnt, st, x2):
+    """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst).
+
+    Leaves the linear predictor in ``xp`` (the jump test's reference and backward
+    Euler's error predictor) and, for order 2, the quadratic one in ``xq`` (BDF2's error
+    predictor, and Newton's starting point unless opt[O_QUAD_GUESS] is off)."""
     apply_automation(pf, auto, t + h)
     _predict(nh, h, h1, x, x1, xp)
     a0 = _coefficients(order, h, h1, x, x1, c)
-    if order == 2 and nh >= 2 and opt[O_QUAD_GUESS] > 0.0:
-        # Newton starts from the quadratic extrapolation (the error estimate's), closer
-        # than the linear predictor ``xp`` that the jump test compares with
-        _extrapolate2(h, h1, st[S_H2], x, x1, x2, xn)
-    else:
-        for i in range(x.shape[0]):
-            xn[i] = xp[i]
-    outcome, worst = newton(xn, t + h, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r,
-                            xp, jump_v, cnt, st)
-    if outcome == N_OK and jump_v > 0.0:
-        for i in range(1, x.shape[0]):
-            if unk[i, U_VOLT] > 0.0 and abs(xn[i] - xp[i]) > jump_v:
-                return N_JUMPED_CONVERGED, i
-    return outcome, worst
+    guess = xp
+    if order == 2:
+        _extrapolate2(h, h1, st[S_H2], x, x1, x2, xq)
+        if opt[O_QUAD_GUESS] > 0.0:
+            guess = xq
+    for i in range(x.shape[0]):
+        xn[i] = guess[i]
+    return newton(xn, t + h, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xp, jump_v,
+                  cnt, st)
 
 
 @numba.njit(cache=True)
@@ -322,37 +325,26 @@ def _weight(unk, i, weighted, relax_weight):
 
 
 @numba.njit(cache=True)
-def _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, weighted, relax_weight):
+def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relax_weight):
     """Weighted max-norm of the local error estimate (1.0 = at tolerance).
 
+    ``xe``: the extrapolating predictor of the step's order (quadratic through the last
+    three points for BDF2, linear for backward Euler); the local error is its distance
+    from the corrector ``xn`` times the method's factor (Milne's device).
     ``weighted`` False holds every unknown to the full tolerance. ``relax_weight`` > 0
     (after a flip) weights the error of fast unknowns (no part capacitance) by it instead."""
-    n = x.shape[0]
-    err = 0.0
     if order == 2:
-        # quadratic through (t-h1-h2, x2), (t-h1, x1), (t, x) extrapolated to t+h
-        ta = -(h1 + h2)
-        tb = -h1
-        la = (h * (h - tb)) / ((ta) * (ta - tb))
-        lb = (h * (h - ta)) / ((tb) * (tb - ta))
-        lc = ((h - ta) * (h - tb)) / ((-ta) * (-tb))
         fac = h * (h + h1) / ((2.0 * h + h1) * (h + h1 + h2))
         fac = fac / (1.0 + fac)
-        for i in range(1, n):
-            p = la * x2[i] + lb * x1[i] + lc * x[i]
-            scale = _weight(unk, i, weighted, relax_weight) * (
-                unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
-            e = abs(xn[i] - p) * fac / scale
-            if e > err:
-                err = e
     else:
         fac = h / (2.0 * h + h1)
-        for i in range(1, n):
-            scale = _weight(unk, i, weighted, relax_weight) * (
-                unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
-            e = abs(xn[i] - xp[i]) * fac / scale
-            if e > err:
-                err = e
+    err = 0.0
+    for i in range(1, x.shape[0]):
+        scale = _weight(unk, i, weighted, relax_weight) * (
+            unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
+        e = abs(xn[i] - xe[i]) * fac / scale
+        if e > err:
+            err = e
     return err
 
 
@@ -403,6 +395,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
     c = np.zeros(n)
     xn = np.zeros(n)
     xp = np.zeros(n)
+    xq = np.zeros(n)
+    v = np.zeros(n)
     xlo = np.zeros(n)
     t_end = opt[O_T_END]
     rtol = opt[O_RTOL]
@@ -431,8 +425,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         h2 = st[S_H2]
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
         jv = jump_v if mode == MODE_NORMAL else 0.0
-        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, c, M, pf, nf, tab, df,
-                                  unk, opt, auto, f, G, J, r, jv, cnt, st, x2)
+        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, nf, tab,
+                                  df, unk, opt, auto, f, G, J, r, v, jv, cnt, st, x2)
         if mode == MODE_NORMAL and outcome != N_OK:
             if h > event_dt:
                 # A flip inside (t, t+h]: bracket it by bisection.
@@ -442,8 +436,9 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 while hi - lo > event_dt:
                     mid = 0.5 * (lo + hi)
                     cnt[K_TRIALS] += 1
-                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, c, M, pf, nf, tab,
-                                      df, unk, opt, auto, f, G, J, r, jump_v, cnt, st, x2)
+                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, M, pf, nf,
+                                      tab, df, unk, opt, auto, f, G, J, r, v, jump_v, cnt, st,
+                                      x2)
                     if o2 == N_OK:
                         lo = mid
                         have_lo = True
@@ -462,12 +457,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 st[S_HGOAL] = h
                 st[S_H] = min(hi - lo, opt[O_H_RESTART])
                 continue
-            if outcome == N_JUMPED_CONVERGED:
-                # A flip at a step already this short: step over it as a recovery.
-                k = _accept(st, t + h, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, 1)
-                cnt[K_STEPS] += 1
-                st[S_NHIST] = 0.0
-            if outcome != N_FAILED:
+            if outcome == N_JUMPED:
                 # Stepping over a flip (this step was short already): recovery mode,
                 # where jumps are expected and no longer cut the iteration short.
                 cnt[K_EVENTS] += 1
@@ -487,8 +477,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
             # Error control in both modes; in recovery (backward Euler across a flip)
             # the step may grow faster, by ``growth``, as the transient dies out.
             relax = opt[O_RECOVER_WEIGHT] if st[S_RELAX] > 0.0 else 0.0
-            err = _error_norm(order, h, h1, h2, x, x1, x2, xn, xp, unk, rtol, mode == MODE_NORMAL,
-                              relax)
+            err = _error_norm(order, h, h1, h2, x, xn, xq if order == 2 else xp, unk, rtol,
+                              mode == MODE_NORMAL, relax)
             expo = 1.0 / (order + 1.0)
             if err > 1.0:
                 cnt[K_REJECT_ERROR] += 1
