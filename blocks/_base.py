@@ -44,6 +44,9 @@ Checklist for a new kind (see DEVELOPERS.md for a worked example):
    ``inputs`` draw no DC current and need a DC path to a defined voltage (a gate's
    input). A part with inputs, all of them on a rail, is a tied-off spare; its
    outputs may be left open.
+10. Optional ``sound_ohms`` for a loudspeaker: the parameter whose ohms turn its first
+    branch current into the volts heard (``listen: SP1``); the load report and the
+    speaker wiring rules find speakers by it.
 """
 
 from __future__ import annotations
@@ -107,6 +110,8 @@ class Kind:
     # terminals that drive their nets / high-impedance inputs (see item 9 above)
     outputs: tuple[str, ...] = ()
     inputs: tuple[str, ...] = ()
+    # a loudspeaker's ohms parameter (see item 10 above)
+    sound_ohms: str | None = None
 
     def param(self, name: str) -> Param:
         for p in self.params:

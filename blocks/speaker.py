@@ -131,6 +131,7 @@ KIND = Kind(
     stamp=stamp,
     mass=mass,
     main_param="ohms",
+    sound_ohms="ohms",
     models={
         "coil": {},
         # from memory: 50 to 66 mm full-range speakers resonate at about 200 to 450 Hz in

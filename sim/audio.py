@@ -184,6 +184,24 @@ def to_wav_samples(volts, *, full_scale_volts: float, normalize: bool = False,
     return samples, info
 
 
+#: Start of the warning for a clipped render (lets a batch tell its steps' WAV warnings apart).
+CLIPPED_PREFIX = "the WAV clipped"
+
+
+def level_warnings(info: dict, full_scale_volts: float, wav: str = "the WAV",
+                   source: str = "the listening signal") -> list[str]:
+    """Warnings about a WAV's level from ``info`` (of :func:`to_wav_samples`): clipped
+    samples, and a loud first play (:func:`first_play_warning`)."""
+    out = []
+    if info["clipped_samples"]:
+        out.append(f"{wav} clipped {info['clipped_samples']} samples: {source} exceeds the "
+                   f"{full_scale_volts:g} V full scale (use --full-scale or --normalize)")
+    loud = first_play_warning(info)
+    if loud:
+        out.append(loud)
+    return out
+
+
 def first_play_warning(info: dict) -> str | None:
     """A caution for the first play when ``info["rms_dbfs"]`` exceeds ``LOUD_RMS_DBFS``."""
     rms_dbfs = info.get("rms_dbfs")

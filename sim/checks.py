@@ -102,8 +102,9 @@ CAUTIONS = (
     "govern anything mains-powered.",
 )
 
-#: Kinds whose part is a loudspeaker coil (the speaker rules look at these).
-SPEAKER_KINDS = ("speaker",)
+#: Kinds whose part is a loudspeaker coil (the speaker rules look at these): the kinds
+#: that declare ``Kind.sound_ohms``.
+SPEAKER_KINDS = tuple(name for name, kind in REGISTRY.items() if kind.sound_ohms)
 
 #: Voltage steps between a part's terminals when its conductances are probed, V. Two
 #: states, this and its mirror, put every junction at 3 V forward in one of them:

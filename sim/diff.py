@@ -28,12 +28,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
 from sim import audio, plots
 from sim.errors import PatchError
-from sim.fileio import atomic_path, write_json
+from sim.fileio import write_json
 from sim.patch import Patch, load_patch, parse_override
 from sim.render import (PLOT_MIN_SECONDS, PLOT_NO_PITCH_SECONDS, PLOT_PERIODS,
                         Rendered, RenderOptions, listen_label, render)
@@ -203,35 +201,9 @@ def overlay_plot(path: str | os.PathLike, times_s, traces: dict, title: str,
     """
     if not traces:
         raise ValueError("overlay_plot needs at least one net")
-    t_ms = np.asarray(times_s, dtype=np.float64) * 1e3
-    count = len(traces)
-    fig = Figure(figsize=(plots.FIGURE_WIDTH_IN,
-                          plots.HEIGHT_BASE_IN + plots.HEIGHT_PER_TRACE_IN * count),
-                 dpi=plots.DPI, facecolor="white")
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(count, 1, sharex=True, squeeze=False)[:, 0]
-    for ax, (net, (volts_a, volts_b, label_a, label_b)) in zip(axes, traces.items()):
-        for volts, label, style in ((volts_a, label_a, A_STYLE), (volts_b, label_b, B_STYLE)):
-            v = np.asarray(volts, dtype=np.float64)
-            if v.shape != t_ms.shape:
-                raise ValueError(f"trace {net!r} has shape {v.shape}, times have {t_ms.shape}")
-            xs, ys = plots.envelope(t_ms, v)
-            ax.plot(xs, ys, label=label, **style)
-        ax.set_ylabel(f"{net} (V)")
-        ax.grid(True, color="#d0d0d0", linewidth=0.6)
-        ax.margins(x=0.0, y=0.08)
-        ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2, fontsize=8,
-                  frameon=False, borderaxespad=0.1)
-        for side in ("top", "right"):
-            ax.spines[side].set_visible(False)
-    axes[-1].set_xlabel("time (ms)")
-    fig.suptitle(title, fontsize=13, fontweight="bold", x=0.01, ha="left")
-    if subtitle:
-        fig.text(0.01, 1.0 - 0.42 / fig.get_figheight(), subtitle, fontsize=9, color="#444444",
-                 ha="left", va="top")
-    fig.tight_layout(rect=(0.0, 0.0, 1.0, 1.0 - 0.5 / fig.get_figheight()))
-    with atomic_path(path) as temp:
-        fig.savefig(temp, format="png", dpi=plots.DPI, facecolor="white")
+    plots.stacked_plot(path, times_s, {
+        net: [(volts_a, label_a, A_STYLE), (volts_b, label_b, B_STYLE)]
+        for net, (volts_a, volts_b, label_a, label_b) in traces.items()}, title, subtitle)
 
 
 def _plot_seconds(report_a: dict, report_b: dict) -> float:

@@ -82,19 +82,37 @@ def waveform_plot(path: str | os.PathLike, times_s, traces: dict, title: str,
     """
     if not traces:
         raise ValueError("waveform_plot needs at least one trace")
+    stacked_plot(path, times_s, {
+        name: [(volts, None, {"color": TRACE_COLOURS[i % len(TRACE_COLOURS)], "linewidth": 1.0})]
+        for i, (name, volts) in enumerate(traces.items())}, title, subtitle)
+
+
+def stacked_plot(path: str | os.PathLike, times_s, panels: dict, title: str,
+                 subtitle: str | None = None) -> None:
+    """Stacked subplots sharing a time axis in ms, one or more curves on each.
+
+    ``times_s``: shape ``(n,)`` seconds; ``panels``: name -> list of ``(volts, label,
+    style)`` with volts of shape ``(n,)``, ``label`` a legend entry or None and
+    ``style`` matplotlib line keywords. A panel with labels gets a legend above it
+    (never over a trace). Sized as :func:`waveform_plot`.
+    """
     t_ms = np.asarray(times_s, dtype=np.float64) * 1e3
-    count = len(traces)
+    count = len(panels)
     fig = _new_figure(HEIGHT_BASE_IN + HEIGHT_PER_TRACE_IN * count)
     axes = fig.subplots(count, 1, sharex=True, squeeze=False)[:, 0]
-    for i, (ax, (name, volts)) in enumerate(zip(axes, traces.items())):
-        v = np.asarray(volts, dtype=np.float64)
-        if v.shape != t_ms.shape:
-            raise ValueError(f"trace {name!r} has shape {v.shape}, times have {t_ms.shape}")
-        xs, ys = envelope(t_ms, v)
-        ax.plot(xs, ys, color=TRACE_COLOURS[i % len(TRACE_COLOURS)], linewidth=1.0)
+    for ax, (name, curves) in zip(axes, panels.items()):
+        for volts, label, style in curves:
+            v = np.asarray(volts, dtype=np.float64)
+            if v.shape != t_ms.shape:
+                raise ValueError(f"trace {name!r} has shape {v.shape}, times have {t_ms.shape}")
+            xs, ys = envelope(t_ms, v)
+            ax.plot(xs, ys, label=label, **style)
         ax.set_ylabel(f"{name} (V)")
         ax.grid(True, color="#d0d0d0", linewidth=0.6)
         ax.margins(x=0.0, y=0.08)
+        if any(label is not None for _, label, _ in curves):
+            ax.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), ncol=2, fontsize=8,
+                      frameon=False, borderaxespad=0.1)
         for side in ("top", "right"):
             ax.spines[side].set_visible(False)
     axes[-1].set_xlabel("time (ms)")

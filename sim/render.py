@@ -63,7 +63,9 @@ SUPPLY_MIN_VOLTS = 3.0
 #: volts a resistor of the speaker's ohms would show. So the fixed full scale applies as
 #: for a net, and the levels of two renders through the same speaker compare as the
 #: square roots of their powers.
-LISTEN_CURRENT_OHMS = {"speaker": "ohms"}
+def speaker_kinds() -> tuple[str, ...]:
+    """Kinds that are loudspeakers (``Kind.sound_ohms`` set): listened to by their current."""
+    return tuple(name for name, kind in blocks.REGISTRY.items() if kind.sound_ohms)
 
 #: A speaker whose mean current is more than this fraction of its RMS current (DC
 #: included) is flagged: the DC pushes the cone off centre and heats the coil without
@@ -204,20 +206,20 @@ def listened_current(patch) -> tuple[str, float] | None:
     """For ``listen: REF``: the recorded unknown (``"SP1.current"``) and the ohms that scale it.
 
     None when the patch listens to a net or a pair of nets. Raises PatchError naming the
-    file, line and part when the part's kind has no current to play (see
-    LISTEN_CURRENT_OHMS).
+    file, line and part when the part's kind has no current to play (only a kind that
+    declares ``sound_ohms`` has).
     """
     ref = patch.listen.part
     if ref is None:
         return None
     part = patch.parts[ref]
-    if part.kind not in LISTEN_CURRENT_OHMS:
+    kind = blocks.REGISTRY[part.kind]
+    if not kind.sound_ohms:
         raise PatchError(f"listen: {ref} is a {part.kind}; the current of a "
-                         f"{' or '.join(LISTEN_CURRENT_OHMS)} can be listened to, not of a "
+                         f"{' or '.join(speaker_kinds())} can be listened to, not of a "
                          f"{part.kind}: listen to a net, [plus, minus], or the speaker it drives",
                          file=patch.path, line=patch.listen.line, part=ref)
-    branch = blocks.REGISTRY[part.kind].branches[0]
-    return f"{ref}.{branch}", float(part.values[LISTEN_CURRENT_OHMS[part.kind]])
+    return f"{ref}.{kind.branches[0]}", float(part.values[kind.sound_ohms])
 
 
 def listen_signal(patch, circuit: Circuit, values: dict[str, np.ndarray]) -> np.ndarray:
@@ -275,9 +277,8 @@ def listen_label(patch) -> str:
 # ---------------------------------------------------------------------------------
 # loads: speakers and the gates' outputs
 
-#: The kind whose parts' output currents are reported, and the kind whose power is.
+#: The kind whose parts' output currents are reported (speakers: see speaker_kinds).
 GATE_KIND = "inverter"
-SPEAKER_KIND = "speaker"
 
 #: The ground net: 0 V by definition, never a recorded unknown.
 GROUND = "gnd"
@@ -293,9 +294,9 @@ def load_record_names(patch) -> list[str]:
     nets (``gnd`` excluded: it is 0 V and never an unknown)."""
     names = []
     for ref, part in patch.parts.items():
-        if part.kind == SPEAKER_KIND:
-            branch = blocks.REGISTRY[SPEAKER_KIND].branches[0]
-            names += [*part.nets["between"], f"{ref}.{branch}"]
+        kind = blocks.REGISTRY[part.kind]
+        if kind.sound_ohms:
+            names += [*part.nets[kind.terminals[0][0]], f"{ref}.{kind.branches[0]}"]
         elif part.kind == GATE_KIND:
             names += [part.nets["in"][0], part.nets["out"][0]]
     return [name for name in names if name != GROUND]
@@ -309,12 +310,12 @@ def speaker_report(patch, values: dict[str, np.ndarray], warnings: list[str]) ->
     dc_ma: mean coil current. ``values`` maps recorded names (and ``gnd``) to (m,) arrays.
     """
     out = {}
-    branch = blocks.REGISTRY[SPEAKER_KIND].branches[0]
     for ref, part in patch.parts.items():
-        if part.kind != SPEAKER_KIND:
+        kind = blocks.REGISTRY[part.kind]
+        if not kind.sound_ohms:
             continue
-        plus, minus = part.nets["between"]
-        amps = values[f"{ref}.{branch}"]
+        plus, minus = part.nets[kind.terminals[0][0]]
+        amps = values[f"{ref}.{kind.branches[0]}"]
         volts = values[plus] - values[minus]
         dc_amps = float(np.mean(amps))
         rms_amps = float(np.sqrt(np.mean(amps * amps)))
@@ -513,7 +514,7 @@ def prepare_moves(patch, opts: RenderOptions) -> tuple[object, tuple[Automation,
             raise _move_error(patch, move, "a gate's parameters stay fixed within a render "
                               "(its output currents are read back from them); compare "
                               "values with halfrail sweep instead")
-        if move.ref == patch.listen.part and LISTEN_CURRENT_OHMS.get(part.kind) == move.param:
+        if move.ref == patch.listen.part and blocks.REGISTRY[part.kind].sound_ohms == move.param:
             raise _move_error(patch, move, f"{move.param} scales the listened current into "
                               "the WAV, so it stays fixed within a render; step it with "
                               "halfrail sweep instead")
@@ -675,13 +676,7 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
                                           opts.settle + opts.seconds, opts.rate_hz)
         samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
                                              normalize=opts.normalize, rate_hz=opts.rate_hz)
-        if info["clipped_samples"]:
-            warnings.append(f"the WAV clipped {info['clipped_samples']} samples: the listening "
-                            f"signal exceeds the {opts.full_scale_volts:g} V full scale (use "
-                            "--full-scale or --normalize)")
-        loud = audio.first_play_warning(info)
-        if loud:
-            warnings.append(loud)
+        warnings.extend(audio.level_warnings(info, opts.full_scale_volts))
 
     report = {
         "patch": patch.name,

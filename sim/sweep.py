@@ -91,9 +91,6 @@ BATTERY_CAVEAT = ("capacity divided by the mean current of the swept points: a b
                   "rises, and the circuit may stop working before the battery is flat, so "
                   "treat this as an upper estimate")
 
-#: How a render's warning about its own WAV clipping starts (sim.render.render).
-WAV_CLIPPED_PREFIX = "the WAV clipped"
-
 #: Columns of the printed and saved table: (heading, point key).
 TABLE_COLUMNS = (("value", "value"), ("pitch Hz", "freq_hz"), ("note", "note"),
                  ("cents", "cents"), ("level V rms", "rms"), ("THD %", "thd_pct"),
@@ -228,7 +225,7 @@ def step_warnings(key: str, unit: str, values: Sequence[float], reports: Sequenc
     for value, report in zip(values, reports):
         own_wav = {audio.first_play_warning(report["audio"])}
         for warning in report["warnings"]:
-            if warning in own_wav or warning.startswith(WAV_CLIPPED_PREFIX):
+            if warning in own_wav or warning.startswith(audio.CLIPPED_PREFIX):
                 continue
             if not any(w.endswith(f": {warning}") for w in out):
                 out.append(f"at {key}={format_quantity(value, unit)}: {warning}")
@@ -317,13 +314,8 @@ def sweep(patch_path: str | os.PathLike, key: str, range_text: str,
     points = [sweep_point(v, r, probed) for v, r in zip(values, reports)]
     samples, wav_info = sequence_samples([r[AUDIO_KEY] for r in reports], opts)
     warnings = step_warnings(key, param.unit, values, reports)
-    if wav_info["clipped_samples"]:
-        warnings.append(f"the sweep WAV clipped {wav_info['clipped_samples']} samples: a step "
-                        f"exceeds the {wav_info['full_scale_volts']:g} V full scale (use "
-                        "--full-scale or --normalize)")
-    loud = audio.first_play_warning(wav_info)
-    if loud:
-        warnings.append(loud)
+    warnings.extend(audio.level_warnings(wav_info, wav_info["full_scale_volts"],
+                                         wav="the sweep WAV", source="a step"))
     report = {
         "param": key,
         "unit": param.unit,
