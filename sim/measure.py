@@ -296,7 +296,8 @@ def _chain_period(chain: np.ndarray) -> float:
     """Least-squares slope of crossing time against period count (samples)."""
     count = np.arange(chain.size, dtype=np.float64)
     count -= count.mean()
-    return float(np.dot(count, chain - chain.mean()) / np.dot(count, count))
+    # numpy's own pairwise sums, not BLAS: the last bits must not depend on threads
+    return float(np.sum(count * (chain - chain.mean())) / np.sum(count * count))
 
 
 def find_pitch(volts, rate_hz: float, drift_limit_cents: float = DRIFT_LIMIT_CENTS
@@ -412,7 +413,9 @@ def harmonic_amplitudes(x: np.ndarray, rate_hz: float, freq_hz: float, start: fl
         if h * freq_hz >= rate_hz / 2.0:
             amplitudes.append(None)
             continue
-        amplitudes.append(float(norm * abs(np.dot(weighted, phasor))))
+        # np.sum (pairwise, fixed order) rather than a BLAS dot, whose summation order
+        # follows the BLAS thread count: reports agree to the bit wherever they run
+        amplitudes.append(float(norm * abs(np.sum(weighted * phasor))))
     return amplitudes
 
 

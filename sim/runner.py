@@ -20,7 +20,6 @@ machine or order runs it. Executors:
 
 from __future__ import annotations
 
-import contextlib
 import dataclasses
 import multiprocessing
 import os
@@ -125,27 +124,10 @@ def render_job(job: Job, keep_audio: bool = False) -> dict:
     return report
 
 
-def _one_blas_thread():
-    """A context in which numpy's BLAS runs on one thread (when threadpoolctl is there).
-
-    A long dot product (the harmonic levels project the whole record) is summed in an
-    order that depends on the number of BLAS threads, which changes its last bits; Dask
-    workers run BLAS on one thread, a plain process on one per core. Rendering every
-    job on one thread makes the reports identical to the bit wherever they run (and
-    loses nothing: the jobs themselves already share the cores).
-    """
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:
-        return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
-
-
 def _worker(job: Job, keep_audio: bool) -> dict:
     """:func:`render_job` for any process: our errors come back as plain data."""
     try:
-        with _one_blas_thread():
-            return render_job(job, keep_audio)
+        return render_job(job, keep_audio)
     except HalfrailError as error:
         return {_FAILED: str(error), "exit_status": error.exit_status}
 

@@ -62,7 +62,7 @@ def test_the_order_of_the_jobs_does_not_change_any_report(serial):
 @pytest.mark.parametrize("processes", [False, True])
 def test_a_local_dask_cluster_gives_the_same_reports(serial, processes):
     """In this process (threads), and in a worker process of its own, started afresh
-    with Dask's own settings (one BLAS thread): the reports agree to the bit."""
+    with Dask's own settings: the reports agree to the bit."""
     from dask.distributed import LocalCluster
 
     with LocalCluster(n_workers=1, threads_per_worker=2, processes=processes,
