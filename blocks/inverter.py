@@ -98,46 +98,47 @@ L_IN, L_OUT, L_VDD, L_GND = 0, 1, 2, 3
 
 
 @numba.njit
-def _stamp_transistor(x, P, k, nd, f, G):
-    vin, vout, vdd, vss = x[nd[0]], x[nd[1]], x[nd[2]], x[nd[3]]
+def _stamp_transistor(x, P, k, a, o, s, g_, f, G):
+    """Nodes: a input, o output, s vdd (the p channel's source), g_ gnd."""
+    vin, vout, vdd, vss = x[a], x[o], x[s], x[g_]
     two_phi = 2.0 * P[k, C_SLOPE] * THERMAL_VOLTS
     clm = P[k, C_CLM]
     # n channel: drain out, source gnd, gate in. Current out -> gnd.
     i_n, gm_n, gds_n = channel(vin - vss, vout - vss, P[k, C_KN], P[k, C_VTN], clm, two_phi)
     # p channel: source vdd, drain out, gate in. Current vdd -> out.
     i_p, gm_p, gds_p = channel(vdd - vin, vdd - vout, P[k, C_KP], P[k, C_VTP], clm, two_phi)
-    f[nd[1]] += i_n - i_p
-    f[nd[3]] -= i_n
-    f[nd[2]] += i_p
+    f[o] += i_n - i_p
+    f[g_] -= i_n
+    f[s] += i_p
     # d/d(in, out, vdd, gnd)
     dn0, dn1, dn2, dn3 = gm_n, gds_n, 0.0, -(gm_n + gds_n)
     dp0, dp1, dp2, dp3 = -gm_p, -gds_p, gm_p + gds_p, 0.0
-    o, g_, s = nd[1], nd[3], nd[2]
-    G[o, nd[0]] += dn0 - dp0
-    G[o, nd[1]] += dn1 - dp1
-    G[o, nd[2]] += dn2 - dp2
-    G[o, nd[3]] += dn3 - dp3
-    G[g_, nd[0]] -= dn0
-    G[g_, nd[1]] -= dn1
-    G[g_, nd[3]] -= dn3
-    G[s, nd[0]] += dp0
-    G[s, nd[1]] += dp1
-    G[s, nd[2]] += dp2
+    G[o, a] += dn0 - dp0
+    G[o, o] += dn1 - dp1
+    G[o, s] += dn2 - dp2
+    G[o, g_] += dn3 - dp3
+    G[g_, a] -= dn0
+    G[g_, o] -= dn1
+    G[g_, g_] -= dn3
+    G[s, a] += dp0
+    G[s, o] += dp1
+    G[s, s] += dp2
 
 
 @numba.njit
-def _stamp_behavioural(x, P, k, nd, f, G):
-    vin, vout, vdd, vss = x[nd[0]], x[nd[1]], x[nd[2]], x[nd[3]]
+def _stamp_behavioural(x, P, k, a, o, s, g_, f, G):
+    """Nodes: a input, o output, s vdd, g_ gnd."""
+    vin, vout, vdd, vss = x[a], x[o], x[s], x[g_]
     span = vdd - vss
     if span < 1e-3:  # rails collapsed (before power-on): keep the algebra finite
         span = 1e-3
-    a = P[k, C_GAIN]
+    gain = P[k, C_GAIN]
     thr = P[k, C_THR]
     rel = (vin - vss) / span
-    z = 2.0 * a * (rel - thr)
-    dz_in = 2.0 * a / span
-    dz_vdd = -2.0 * a * (vin - vss) / (span * span)
-    dz_gnd = 2.0 * a * (-span + (vin - vss)) / (span * span)
+    z = 2.0 * gain * (rel - thr)
+    dz_in = 2.0 * gain / span
+    dz_vdd = -2.0 * gain * (vin - vss) / (span * span)
+    dz_gnd = 2.0 * gain * (-span + (vin - vss)) / (span * span)
     th = math.tanh(z)
     sech2 = 1.0 - th * th
     v_t = vss + 0.5 * span * (1.0 - th)
@@ -158,21 +159,21 @@ def _stamp_behavioural(x, P, k, nd, f, G):
     iq = idle * sech2
     diq = -2.0 * idle * th * sech2
     d_iq = (diq * dz_in, 0.0, diq * dz_vdd, diq * dz_gnd)
-    f[nd[1]] -= i
-    f[nd[2]] += i_src + iq
-    f[nd[3]] -= i_src - i + iq
+    f[o] -= i
+    f[s] += i_src + iq
+    f[g_] -= i_src - i + iq
+    cols = (a, o, s, g_)
     for c in range(4):
-        col = nd[c]
-        G[nd[1], col] -= d_i[c]
-        G[nd[2], col] += ds * d_i[c] + d_iq[c]
-        G[nd[3], col] -= ds * d_i[c] - d_i[c] + d_iq[c]
+        col = cols[c]
+        G[o, col] -= d_i[c]
+        G[s, col] += ds * d_i[c] + d_iq[c]
+        G[g_, col] -= ds * d_i[c] - d_i[c] + d_iq[c]
 
 
 @numba.njit
-def _stamp_clamps(x, P, k, nd, f, G):
+def _stamp_clamps(x, P, k, i_in, vdd, gnd, f, G):
     n_vt = THERMAL_VOLTS
     isat = P[k, C_CLAMP]
-    i_in, vdd, gnd = nd[0], nd[2], nd[3]
     i, g = junction(x[i_in] - x[vdd], isat, n_vt)  # input -> vdd
     branch(f, G, i_in, vdd, i, g)
     i, g = junction(x[gnd] - x[i_in], isat, n_vt)  # gnd -> input
@@ -182,12 +183,13 @@ def _stamp_clamps(x, P, k, nd, f, G):
 @numba.njit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
-        nd = N[k]
+        # node indices read one by one: a row view N[k] would cost a reference count
+        a, o, s, g_ = N[k, L_IN], N[k, L_OUT], N[k, L_VDD], N[k, L_GND]
         if P[k, C_FORM] == 0.0:
-            _stamp_transistor(x, P, k, nd, f, G)
+            _stamp_transistor(x, P, k, a, o, s, g_, f, G)
         else:
-            _stamp_behavioural(x, P, k, nd, f, G)
-        _stamp_clamps(x, P, k, nd, f, G)
+            _stamp_behavioural(x, P, k, a, o, s, g_, f, G)
+        _stamp_clamps(x, P, k, a, s, g_, f, G)
 
 
 def mass(values):

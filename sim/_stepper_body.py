@@ -103,6 +103,14 @@ N_OK = 0
 N_FAILED = 1
 N_JUMPED = 2  # an iterate (the last one included) left the predictor by more than the limit
 
+#: The stepper's inner functions are compiled without numba's reference-counting
+#: runtime: they only read and write the arrays they are given (no allocation, no
+#: views), and with the runtime on, every array passed to a call costs an atomic
+#: increment and decrement. Measured on the oscillator scenario: those took half the
+#: stepper's time (4.6x real time with them, 8.6x without). ``run`` and
+#: ``evaluate_rows`` allocate their work arrays and keep the runtime.
+lean = numba.njit(cache=True, _nrt=False)
+
 #: Step-size controller: never grow by more than this per step (keeps BDF2's
 #: variable-step formula well inside its zero-stability bound of 1 + sqrt(2)).
 MAX_GROWTH = 2.0
@@ -126,7 +134,7 @@ NEWTON_SHRINK = 0.25
 RATE_DECAY = 0.3
 
 
-@numba.njit(cache=True)
+@lean
 def lu_solve(A, b, n):
     """Solve A[1:n,1:n] y = b[1:n] in place (b becomes y); Gaussian elimination with
     partial pivoting. Row/column 0 (ground) is ignored. Returns False if singular."""
@@ -164,7 +172,7 @@ def lu_solve(A, b, n):
     return True
 
 
-@numba.njit(cache=True)
+@lean
 def apply_automation(pf, auto, t):
     """Move automated parameters: rows (flat index, t0, t1, v0, v1), linear in time."""
     for r in range(auto.shape[0]):
@@ -179,8 +187,8 @@ def apply_automation(pf, auto, t):
         pf[int(auto[r, 0])] = v
 
 
-@numba.njit(cache=True)
-def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xref, jump_v, cnt,
+@lean
+def newton(xn, t_new, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xref, jump_v, cnt,
            st):
     """Solve M (a0 xn + c) + f(xn, t_new) = 0 for xn (in place, starting from xn).
 
@@ -200,7 +208,7 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xref, 
     conv_prev = -1.0
     for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
-        evaluate(xn, t_new, pf, nf, tab, df, f, G)
+        evaluate_parts(xn, t_new, P, N, D, f, G)
         for j in range(1, n):
             v[j] = a0 * xn[j] + c[j]
         for i in range(1, n):
@@ -251,7 +259,7 @@ def newton(xn, t_new, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xref, 
     return N_FAILED, worst
 
 
-@numba.njit(cache=True)
+@lean
 def _coefficients(order, h, h1, x, x1, c):
     """Fill ``c`` and return a0 so that dx/dt at the new point is a0 xn + c."""
     n = x.shape[0]
@@ -269,7 +277,7 @@ def _coefficients(order, h, h1, x, x1, c):
     return a0
 
 
-@numba.njit(cache=True)
+@lean
 def _predict(nh, h, h1, x, x1, xp):
     """Linear extrapolation (or a copy of x without history) into ``xp``."""
     n = x.shape[0]
@@ -282,7 +290,7 @@ def _predict(nh, h, h1, x, x1, xp):
             xp[i] = x[i]
 
 
-@numba.njit(cache=True)
+@lean
 def _extrapolate2(h, h1, h2, x, x1, x2, out):
     """Quadratic through (-h1-h2, x2), (-h1, x1), (0, x), evaluated at h, into ``out``."""
     ta = -(h1 + h2)
@@ -294,8 +302,8 @@ def _extrapolate2(h, h1, h2, x, x1, x2, out):
         out[i] = la * x2[i] + lb * x1[i] + lc * x[i]
 
 
-@numba.njit(cache=True)
-def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, nf, tab, df, unk, opt, auto,
+@lean
+def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, P, N, D, unk, opt, auto,
              f, G, J, r, v, jump_v, cnt, st, x2):
     """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst).
 
@@ -312,11 +320,11 @@ def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, nf, tab, df, unk,
             guess = xq
     for i in range(x.shape[0]):
         xn[i] = guess[i]
-    return newton(xn, t + h, a0, c, M, pf, nf, tab, df, unk, opt, f, G, J, r, v, xp, jump_v,
+    return newton(xn, t + h, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xp, jump_v,
                   cnt, st)
 
 
-@numba.njit(cache=True)
+@lean
 def _weight(unk, i, weighted, relax_weight):
     """Error weight of unknown i (see _error_norm)."""
     if relax_weight > 0.0 and unk[i, U_SLOW] == 0.0:
@@ -324,7 +332,7 @@ def _weight(unk, i, weighted, relax_weight):
     return unk[i, U_WEIGHT] if weighted else 1.0
 
 
-@numba.njit(cache=True)
+@lean
 def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relax_weight):
     """Weighted max-norm of the local error estimate (1.0 = at tolerance).
 
@@ -348,7 +356,7 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relax_weight):
     return err
 
 
-@numba.njit(cache=True)
+@lean
 def _accept(st, t_new, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, order):
     n = x.shape[0]
     for i in range(n):
@@ -366,7 +374,7 @@ def _accept(st, t_new, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, order):
     return k + 1
 
 
-@numba.njit(cache=True)
+@lean
 def _flipping(x, x1, h, unk, opt):
     """True when a fast voltage unknown moved by more than opt[O_FLIP_VOLTS] in the step
     just accepted (x1 -> x, size h) at more than opt[O_FLIP_SLEW] volts per second."""
@@ -388,6 +396,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
     point: 2 (quadratic through the last three points) or 1 (linear).
     """
     n = x.shape[0]
+    P, N, D = tables(pf, nf, tab, df)
     f = np.zeros(n)
     G = np.zeros((n, n))
     J = np.zeros((n, n))
@@ -425,8 +434,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         h2 = st[S_H2]
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
         jv = jump_v if mode == MODE_NORMAL else 0.0
-        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, nf, tab,
-                                  df, unk, opt, auto, f, G, J, r, v, jv, cnt, st, x2)
+        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, P, N,
+                                  D, unk, opt, auto, f, G, J, r, v, jv, cnt, st, x2)
         if mode == MODE_NORMAL and outcome != N_OK:
             if h > event_dt:
                 # A flip inside (t, t+h]: bracket it by bisection.
@@ -436,8 +445,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 while hi - lo > event_dt:
                     mid = 0.5 * (lo + hi)
                     cnt[K_TRIALS] += 1
-                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, M, pf, nf,
-                                      tab, df, unk, opt, auto, f, G, J, r, v, jump_v, cnt, st,
+                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, M, pf, P,
+                                      N, D, unk, opt, auto, f, G, J, r, v, jump_v, cnt, st,
                                       x2)
                     if o2 == N_OK:
                         lo = mid
@@ -528,9 +537,10 @@ def evaluate_rows(X, t, pf, nf, tab, df, F):
     """``f`` for every state row of X (m, n) into F (m, n): post-processing helper
     (e.g. currents out of each gate along a trace), one compiled loop."""
     n = X.shape[1]
+    P, N, D = tables(pf, nf, tab, df)
     G = np.zeros((n, n))
     f = np.zeros(n)
     for s in range(X.shape[0]):
-        evaluate(X[s], t, pf, nf, tab, df, f, G)
+        evaluate_parts(X[s], t, P, N, D, f, G)
         for i in range(n):
             F[s, i] = f[i]

@@ -53,29 +53,51 @@ def _source() -> str:
     ]
     for i, name in enumerate(kind_order()):
         lines.append(f"from {blocks.module_of(name)} import stamp as _stamp_{i}  # {name}")
+    kinds = kind_order()
+
+    def per_kind(build) -> str:
+        return "(" + "".join(build(i) + ", " for i in range(len(kinds))) + ")"
+
+    lines += [
+        "",
+        "",
+        "@numba.njit(cache=True)",
+        "def tables(pf, nf, tab, df):",
+        '    """Per-kind views (P, N, D) of the flat parameter, node and data arrays: one',
+        "    2-D parameter view and node view per kind (0 rows when the patch has none) and",
+        '    its data slice. Views share memory with pf, so automation writes reach them."""',
+        "    P = " + per_kind(lambda i: f"pf[tab[{i}, {TAB_P_OFF}]:tab[{i}, {TAB_P_OFF}] + "
+                              f"tab[{i}, {TAB_COUNT}] * tab[{i}, {TAB_P_COLS}]].reshape("
+                              f"(tab[{i}, {TAB_COUNT}], tab[{i}, {TAB_P_COLS}]))"),
+        "    N = " + per_kind(lambda i: f"nf[tab[{i}, {TAB_N_OFF}]:tab[{i}, {TAB_N_OFF}] + "
+                              f"tab[{i}, {TAB_COUNT}] * tab[{i}, {TAB_N_COLS}]].reshape("
+                              f"(tab[{i}, {TAB_COUNT}], tab[{i}, {TAB_N_COLS}]))"),
+        "    D = " + per_kind(lambda i: f"df[tab[{i}, {TAB_D_OFF}]:tab[{i}, {TAB_D_OFF}] + "
+                              f"tab[{i}, {TAB_D_LEN}]]"),
+        "    return P, N, D",
+        "",
+        "",
+        "@numba.njit(cache=True, inline='always')",
+        "def evaluate_parts(x, t, P, N, D, f, G):",
+        '    """f = sum of part currents out of each node, G = df/dx (both overwritten), from',
+        '    the per-kind views of :func:`tables` (the stepper\'s inner loop)."""',
+        "    f[:] = 0.0",
+        "    G[:, :] = 0.0",
+    ]
+    for i, name in enumerate(kinds):
+        lines += [
+            f"    if P[{i}].shape[0] > 0:  # {name}",
+            f"        _stamp_{i}(x, t, P[{i}], N[{i}], D[{i}], f, G)",
+        ]
     lines += [
         "",
         "",
         "@numba.njit(cache=True)",
         "def evaluate(x, t, pf, nf, tab, df, f, G):",
         '    """f = sum of part currents out of each node, G = df/dx (both overwritten)."""',
-        "    f[:] = 0.0",
-        "    G[:, :] = 0.0",
+        "    P, N, D = tables(pf, nf, tab, df)",
+        "    evaluate_parts(x, t, P, N, D, f, G)",
     ]
-    for i, name in enumerate(kind_order()):
-        lines += [
-            f"    # {name}",
-            f"    cnt = tab[{i}, {TAB_COUNT}]",
-            "    if cnt > 0:",
-            f"        po = tab[{i}, {TAB_P_OFF}]",
-            f"        pc = tab[{i}, {TAB_P_COLS}]",
-            f"        no = tab[{i}, {TAB_N_OFF}]",
-            f"        nc = tab[{i}, {TAB_N_COLS}]",
-            f"        do = tab[{i}, {TAB_D_OFF}]",
-            f"        dl = tab[{i}, {TAB_D_LEN}]",
-            f"        _stamp_{i}(x, t, pf[po:po + cnt * pc].reshape((cnt, pc)),",
-            "                    nf[no:no + cnt * nc].reshape((cnt, nc)), df[do:do + dl], f, G)",
-        ]
     lines.append("")
     body = (Path(__file__).parent / "_stepper_body.py").read_text()
     return "\n".join(lines) + "\n\n" + body
