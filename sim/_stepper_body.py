@@ -24,8 +24,8 @@ Method
   The remembered rate counts at least ``newton_rate_floor`` (0.05: a clamp diode that
   starts to conduct within a step then still gets its second iteration). Newton starts
   from the quadratic extrapolation (as the error estimate's predictor), not the linear
-  one, so the first update is small. Not in recovery, nor while the error test does not
-  watch the fast unknowns (below).
+  one, so the first update is small. The same test holds in recovery after a flip
+  (measured: 6 % fewer iterations, every scenario's pitch unchanged to 0.002 cent).
 - Flips: an accepted normal step in which a fast unknown (no part capacitance) moved by
   more than ``flip_volts`` at more than ``flip_slew`` volts per second is the regenerative
   part of a flip: recovery mode (below) takes over at once, and until the step has grown
@@ -195,9 +195,9 @@ def newton(xn, t_new, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xref, jump_v, 
     ``v`` (n,) is work space (the derivative a0 xn + c of the current iterate).
 
     Returns (outcome, worst unknown index). ``jump_v`` > 0 makes an iterate farther than
-    that from ``xref`` (volts) end the iteration as N_JUMPED; it also marks normal mode,
-    where (unless st[S_RELAX]) the iteration may stop once its update times the
-    contraction rate remembered in st[S_RATE] is below the tolerance.
+    that from ``xref`` (volts) end the iteration as N_JUMPED. The iteration stops once
+    its update times the contraction rate remembered in st[S_RATE] is below the
+    tolerance.
     """
     n = xn.shape[0]
     rtol = opt[O_RTOL] * opt[O_NEWTON_FRAC]
@@ -250,9 +250,7 @@ def newton(xn, t_new, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xref, jump_v, 
             return N_JUMPED, worst
         if scale == 1.0 and conv_prev > 0.0:
             st[S_RATE] = max(RATE_DECAY * st[S_RATE], conv / conv_prev)
-        rate = 1.0
-        if jump_v > 0.0 and st[S_RELAX] == 0.0:
-            rate = min(1.0, max(st[S_RATE], opt[O_RATE_FLOOR]))
+        rate = min(1.0, max(st[S_RATE], opt[O_RATE_FLOOR]))
         if scale == 1.0 and conv * rate <= 1.0:
             return N_OK, worst
         conv_prev = conv if scale == 1.0 else -1.0
@@ -386,7 +384,7 @@ def _flipping(x, x1, h, unk, opt):
     return False
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, out_o, cnt):
     """Step from st[S_T] towards opt[O_T_END], recording accepted points.
 
@@ -532,7 +530,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 st[S_ERR_OLD] = 0.0
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def evaluate_rows(X, t, pf, nf, tab, df, F):
     """``f`` for every state row of X (m, n) into F (m, n): post-processing helper
     (e.g. currents out of each gate along a trace), one compiled loop."""
