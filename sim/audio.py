@@ -4,6 +4,11 @@ The engine simulates well above the audio rate (typically 192 kHz).  The steps t
 WAV file are: :func:`decimate` to the audio rate with a linear-phase anti-alias
 filter, :func:`to_wav_samples` to remove DC, scale, fade and count clipping, and
 :func:`write_wav` to write the file atomically.
+
+Only numpy, numba and (for the drift filter) ``scipy.fft`` are used: the filters are
+designed here (Kaiser's window method) and applied by compiled loops that release the
+GIL, so the WAV path can run in a thread beside the rest of a render.  ``scipy.fft``
+and ``soundfile`` are imported when first needed.
 """
 
 from __future__ import annotations
@@ -13,9 +18,8 @@ import os
 from functools import lru_cache
 from typing import BinaryIO
 
+import numba
 import numpy as np
-import scipy.signal
-import soundfile
 
 from sim.fileio import atomic_path
 
@@ -51,27 +55,98 @@ LOUD_WARNING = ("this render is loud ({rms_dbfs:.1f} dBFS RMS): start playback a
                 "volume; headphones need extra care")
 
 
+#: Kaiser's empirical design formulas for a window-method low-pass FIR (J. F. Kaiser,
+#: "Nonrecursive digital filter design using the I0-sinh window function", 1974, as
+#: given in Oppenheim & Schafer, Discrete-Time Signal Processing, section 7.5.3):
+#: taps = (A - KAISER_OFFSET_DB) / (KAISER_SLOPE_DB * delta_omega) + 1 for A dB of
+#: attenuation and a transition of delta_omega radians per sample, and the window's
+#: beta for A above 50 dB.  (source: from memory; tests/test_audio.py checks the taps
+#: against scipy.signal's kaiserord and firwin.)
+KAISER_OFFSET_DB = 7.95
+KAISER_SLOPE_DB = 2.285
+KAISER_BETA_PER_DB = 0.1102
+KAISER_BETA_OFFSET_DB = 8.7
+
+
+def kaiser_lowpass_taps(attenuation_db: float, pass_edge: float, stop_edge: float) -> np.ndarray:
+    """Odd-length linear-phase low-pass taps by Kaiser's window method, unity DC gain.
+
+    ``pass_edge``, ``stop_edge``: band edges as fractions of the Nyquist frequency
+    (0 < pass_edge < stop_edge <= 1); the ideal response is cut midway between them
+    and ``attenuation_db`` (above 50 dB) sets the window's beta and the length.
+    Shape ``(taps,)``.
+    """
+    if not attenuation_db > 50.0:
+        raise ValueError(f"attenuation_db must be above 50 dB, got {attenuation_db!r}")
+    if not 0.0 < pass_edge < stop_edge <= 1.0:
+        raise ValueError(f"need 0 < pass_edge < stop_edge <= 1, got {pass_edge!r}, {stop_edge!r}")
+    width = stop_edge - pass_edge
+    numtaps = int(math.ceil((attenuation_db - KAISER_OFFSET_DB) / KAISER_SLOPE_DB
+                            / (math.pi * width) + 1.0))
+    numtaps |= 1                          # odd length: the centre tap sits on a sample
+    beta = KAISER_BETA_PER_DB * (attenuation_db - KAISER_BETA_OFFSET_DB)
+    cutoff = 0.5 * (pass_edge + stop_edge)
+    m = np.arange(numtaps, dtype=np.float64) - 0.5 * (numtaps - 1)
+    taps = cutoff * np.sinc(cutoff * m) * np.kaiser(numtaps, beta)
+    return taps / np.sum(taps)
+
+
 @lru_cache(maxsize=16)
 def antialias_taps(factor: int) -> np.ndarray:
     """Linear-phase low-pass FIR taps for decimating by ``factor`` (odd length).
 
-    A Kaiser-window design (scipy.signal.kaiserord / firwin) with passband edge
-    ``PASSBAND_FRACTION`` of the output Nyquist frequency, stopband from the output
-    Nyquist frequency, ``STOPBAND_ATTENUATION_DB`` of attenuation, unity DC gain.
-    Shape ``(taps,)``; the taps are symmetric, so the delay is exactly
-    ``(taps - 1) / 2`` input samples.
+    :func:`kaiser_lowpass_taps` with passband edge ``PASSBAND_FRACTION`` of the output
+    Nyquist frequency, stopband from the output Nyquist frequency,
+    ``STOPBAND_ATTENUATION_DB`` of attenuation, unity DC gain.  Shape ``(taps,)``;
+    the taps are symmetric, so the delay is exactly ``(taps - 1) / 2`` input samples.
     """
     stop = 1.0 / factor                   # output Nyquist, relative to input Nyquist
-    passband = PASSBAND_FRACTION * stop
-    numtaps, beta = scipy.signal.kaiserord(STOPBAND_ATTENUATION_DB, stop - passband)
-    numtaps |= 1                          # odd length: the centre tap sits on a sample
-    taps = scipy.signal.firwin(numtaps, 0.5 * (passband + stop), window=("kaiser", beta))
+    taps = kaiser_lowpass_taps(STOPBAND_ATTENUATION_DB, PASSBAND_FRACTION * stop, stop)
     taps.setflags(write=False)
     return taps
 
 
+#: Output samples computed together by :func:`_fir_decimate`: the taps are applied to a
+#: block of this many outputs at a time (a vector loop the compiler can widen), while
+#: the block's inputs stay in the processor's cache.
+FIR_BLOCK_SAMPLES = 1024
+
+
+@numba.njit(cache=True, nogil=True)
+def _fir_decimate(x, taps, factor):
+    """out[k] = sum_i taps[i] * x[k factor + half - i], x held at its end values beyond
+    its ends (half = (len(taps) - 1) // 2); shape (ceil(n / factor),).
+
+    Each output sums its products in tap order whatever the block or the processor's
+    vector width, so the result is the same to the bit everywhere.
+    """
+    n = x.shape[0]
+    ntaps = taps.shape[0]
+    half = (ntaps - 1) // 2
+    n_out = (n + factor - 1) // factor
+    # polyphase planes of the end-extended input: planes[p, q] = x[q factor + p - pad]
+    pad = half + factor
+    width = (n + 2 * pad) // factor + 2
+    planes = np.empty((factor, width))
+    for p in range(factor):
+        for q in range(width):
+            j = min(max(q * factor + p - pad, 0), n - 1)
+            planes[p, q] = x[j]
+    out = np.zeros(n_out)
+    for k0 in range(0, n_out, FIR_BLOCK_SAMPLES):
+        size = min(n_out, k0 + FIR_BLOCK_SAMPLES) - k0
+        acc = out[k0:k0 + size]
+        for i in range(ntaps):
+            tap = taps[i]
+            offset = half - i + pad          # x index k factor + half - i, shifted by pad
+            src = planes[offset % factor, k0 + offset // factor:k0 + offset // factor + size]
+            for k in range(size):
+                acc[k] += tap * src[k]
+    return out
+
+
 def decimate(volts, factor: int) -> np.ndarray:
-    """Low-pass filter and keep every ``factor``-th sample.
+    """Low-pass filter (:func:`antialias_taps`) and keep every ``factor``-th sample.
 
     ``volts``: shape ``(n,)``.  Returns shape ``(ceil(n / factor),)`` where output
     sample ``k`` corresponds to input sample ``k * factor`` (zero delay: the
@@ -87,8 +162,7 @@ def decimate(volts, factor: int) -> np.ndarray:
     factor = int(factor)
     if factor == 1 or x.size == 0:
         return x.copy()
-    return scipy.signal.resample_poly(x, 1, factor, window=np.array(antialias_taps(factor)),
-                                      padtype="edge")
+    return _fir_decimate(np.ascontiguousarray(x), antialias_taps(factor), factor)
 
 
 def _dbfs(value: float) -> float | None:
@@ -106,14 +180,24 @@ def remove_dc(volts, rate_hz: float) -> np.ndarray:
     offset of about ``corner / pitch`` of the amplitude at each end).
     Shape ``(n,)`` in and out.
     """
+    import scipy.fft
+
     x = np.asarray(volts, dtype=np.float64)
     if x.size == 0:
         return x.copy()
     x = x - np.mean(x)
     taps = int(round(DRIFT_WINDOW_SECONDS * rate_hz)) | 1     # odd: centred on a sample
-    weights = scipy.signal.windows.hann(taps + 2)[1:-1]       # no zero end points
-    total = scipy.signal.oaconvolve(x, weights, mode="same")
-    coverage = scipy.signal.oaconvolve(np.ones_like(x), weights, mode="same")
+    weights = np.hanning(taps + 2)[1:-1]                      # no zero end points
+    half = taps // 2
+    # the centred moving sum by one FFT convolution (zero outside the record)
+    size = scipy.fft.next_fast_len(x.size + taps - 1, real=True)
+    total = scipy.fft.irfft(scipy.fft.rfft(x, size) * scipy.fft.rfft(weights, size),
+                            size)[half:half + x.size]
+    # the part of the window inside the record: a running sum of the weights
+    cumulative = np.concatenate(([0.0], np.cumsum(weights)))
+    i = np.arange(x.size)
+    coverage = (cumulative[np.minimum(i + half + 1, taps)]
+                - cumulative[np.maximum(i - (x.size - 1) + half, 0)])
     return x - total / coverage
 
 
@@ -225,6 +309,8 @@ def write_wav(path: str | os.PathLike | BinaryIO, samples, rate_hz: float) -> No
     rate = int(round(rate_hz))
     if rate <= 0 or abs(rate - rate_hz) > 1e-9 * rate:
         raise ValueError(f"WAV sample rate must be a positive whole number of Hz, got {rate_hz!r}")
+    import soundfile
+
     if hasattr(path, "write"):
         soundfile.write(path, data, rate, subtype="PCM_16", format="WAV")
         return

@@ -16,7 +16,29 @@ CAUTION = ("Caution: start playback at a low volume, especially on headphones. T
            "are meant for batteries or an isolated, certified low-voltage adapter.")
 
 
-def _parser() -> argparse.ArgumentParser:
+#: One-line help of the commands whose options are only added when that command runs
+#: (their defaults live in modules that import matplotlib or scipy.optimize).
+COMMAND_HELP = {
+    "diff": "compare two variants: pitch shift, level change, A-then-B WAV",
+    "play": "render in memory and play through the sound card (starts low)",
+    "sweep": "render a parameter at steps: pitch table, plot, WAV of steps",
+    "spread": "render builds drawn from the parts' tolerances: pitch spread, histogram, "
+              "sensitivities",
+    "tune": "find the value of a part that puts the pitch on a note, snapped to E-series values",
+    "check": "check the wiring rules before soldering (exit 1 on errors)",
+    "sheet": "write the build sheet: packages, pins, wiring, parts list",
+}
+
+
+def _command_of(argv: list[str]) -> str | None:
+    """The command ``argv`` names (its first word), or None (none yet, or ``--help``)."""
+    return argv[0] if argv and not argv[0].startswith("-") else None
+
+
+def _parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The command line parser. With ``command`` (``"render"``...), the options of the other
+    commands that import more of the library are left out (they are listed, with their
+    help), so a command starts without importing what only another one needs."""
     d = RenderOptions()
     top = argparse.ArgumentParser(
         prog="halfrail",
@@ -55,12 +77,18 @@ def _parser() -> argparse.ArgumentParser:
 
     k = sub.add_parser("kinds", help="list the kinds of parts and their parameters")
     k.add_argument("kind", nargs="?", help="one kind to describe in full")
-    _add_check_parsers(sub)
-    _add_diff_parser(sub, d)
-    _add_play_parser(sub, d)
-    _add_sweep_parser(sub, d)
-    _add_spread_parser(sub, d)
-    _add_tune_parser(sub, d)
+    builders = {("check", "sheet"): lambda: _add_check_parsers(sub),
+                ("diff",): lambda: _add_diff_parser(sub, d),
+                ("play",): lambda: _add_play_parser(sub, d),
+                ("sweep",): lambda: _add_sweep_parser(sub, d),
+                ("spread",): lambda: _add_spread_parser(sub, d),
+                ("tune",): lambda: _add_tune_parser(sub, d)}
+    for names, build in builders.items():
+        if command is None or command in names:
+            build()
+        else:
+            for name in names:
+                sub.add_parser(name, help=COMMAND_HELP[name])
     return top
 
 
@@ -122,7 +150,7 @@ def _kinds(args) -> int:
 
 
 def _add_diff_parser(sub, d: RenderOptions) -> None:
-    c = sub.add_parser("diff", help="compare two variants: pitch shift, level change, A-then-B WAV",
+    c = sub.add_parser("diff", help=COMMAND_HELP["diff"],
                        description="Render two variants (two files, or one file with --a/--b "
                                    "overrides) with the same options and write "
                                    "DIR/<patch>.diff.json, .diff.png (A and B overlaid) and "
@@ -152,7 +180,7 @@ def _add_diff_parser(sub, d: RenderOptions) -> None:
 def _add_play_parser(sub, d: RenderOptions) -> None:
     from sim.play import DEFAULT_VOLUME_DBFS
 
-    p = sub.add_parser("play", help="render in memory and play through the sound card (starts low)",
+    p = sub.add_parser("play", help=COMMAND_HELP["play"],
                        description="Render PATCH in memory and play its listening signal through "
                                    "the default output (needs the optional sounddevice library). "
                                    "Playback peaks at --volume dBFS, low by default.")
@@ -187,7 +215,7 @@ def _diff(args) -> int:
 def _add_sweep_parser(sub, d: RenderOptions) -> None:
     from sim.sweep import STEP_SECONDS
 
-    w = sub.add_parser("sweep", help="render a parameter at steps: pitch table, plot, WAV of steps",
+    w = sub.add_parser("sweep", help=COMMAND_HELP["sweep"],
                        description="Render PATCH once per value of REF.param over RANGE and "
                                    "write DIR/<patch>.sweep.json, .sweep.csv (pitch, note, "
                                    "level, THD, supply current per step), .sweep.png (pitch "
@@ -268,8 +296,7 @@ def _add_batch_options(p, d: RenderOptions, seconds_default: float | None = None
 def _add_spread_parser(sub, d: RenderOptions) -> None:
     from sim.spread import DEFAULT_RUNS, DEFAULT_SEED, DEFAULT_WINDOW_CENTS
 
-    s = sub.add_parser("spread", help="render builds drawn from the parts' tolerances: pitch "
-                                      "spread, histogram, sensitivities",
+    s = sub.add_parser("spread", help=COMMAND_HELP["spread"],
                        description="Draw every toleranced parameter of PATCH uniformly within "
                                    "its tolerance, render each build, and write "
                                    "DIR/<patch>.spread.json (pitch of each build, percentiles "
@@ -294,8 +321,7 @@ def _add_tune_parser(sub, d: RenderOptions) -> None:
     from sim.eseries import SERIES
     from sim.tune import DEFAULT_MAX_CENTS, DEFAULT_SERIES
 
-    t = sub.add_parser("tune", help="find the value of a part that puts the pitch on a note, "
-                                    "snapped to E-series values",
+    t = sub.add_parser("tune", help=COMMAND_HELP["tune"],
                        description="Solve for the value of REF (a resistor's or a capacitor's "
                                    "value) whose simulated pitch is the target, then render the "
                                    "neighbouring values of an E-series (and two-part "
@@ -386,7 +412,7 @@ def _add_check_parsers(sub) -> None:
     from sim.checks import CheckOptions
 
     d = CheckOptions()
-    c = sub.add_parser("check", help="check the wiring rules before soldering (exit 1 on errors)",
+    c = sub.add_parser("check", help=COMMAND_HELP["check"],
                        description="Check PATCH against the wiring rules (floating inputs, "
                                    "outputs tied together or overloaded, the supply rating, "
                                    "diodes without a limiting resistor...), print the findings "
@@ -405,7 +431,7 @@ def _add_check_parsers(sub) -> None:
     c.add_argument("--sag", type=float, default=d.sag_fraction, metavar="FRACTION",
                    help=f"with --simulate: supply sag that counts, as a fraction of the battery "
                         f"(default {d.sag_fraction:g})")
-    s = sub.add_parser("sheet", help="write the build sheet: packages, pins, wiring, parts list",
+    s = sub.add_parser("sheet", help=COMMAND_HELP["sheet"],
                        description="Place PATCH's gates on hex inverter packages and write "
                                    "DIR/<patch>.sheet.md (pins, wiring net by net, parts), "
                                    "<patch>.bom.csv and <patch>.sheet.json.")
@@ -450,7 +476,8 @@ def _sheet(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    argv = sys.argv[1:] if argv is None else argv
+    args = _parser(_command_of(argv)).parse_args(argv)
     try:
         if args.command == "render":
             return _render(args)

@@ -66,8 +66,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+import numba
 import numpy as np
-import scipy.fft
 
 from sim.notes import note_of
 
@@ -241,6 +241,8 @@ def _yin_period(x: np.ndarray, tau_min: int, tau_max: int) -> float | None:
     window = length - tau_max - 1     # lags up to tau_max + 1 stay inside
     if window < tau_max or tau_max <= tau_min:
         return None
+    import scipy.fft  # here: a render imports it in a thread while the simulation runs
+
     nfft = scipy.fft.next_fast_len(length + window, real=True)
     spectrum_a = scipy.fft.rfft(seg[:window], nfft)
     spectrum_b = scipy.fft.rfft(seg, nfft)
@@ -377,16 +379,26 @@ def duty_cycle(x: np.ndarray, mid: float, start: float, end: float) -> float:
     """
     lo_i = max(int(math.floor(start)), 0)
     hi_i = min(int(math.ceil(end)), x.size - 1)
-    a, b = x[lo_i:hi_i], x[lo_i + 1:hi_i + 1]
-    k = np.arange(lo_i, hi_i, dtype=np.float64)
-    with np.errstate(divide="ignore", invalid="ignore"):
+    overlap = _time_above(x, float(mid), float(start), float(end), lo_i, hi_i)
+    return float(np.sum(overlap) / (end - start))
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _time_above(x, mid, start, end, lo_i, hi_i):
+    """Time (samples) within ``[start, end]`` that the straight line from sample k to
+    k + 1 spends above ``mid``, for k in ``[lo_i, hi_i)``; shape ``(hi_i - lo_i,)``."""
+    out = np.empty(max(hi_i - lo_i, 0))
+    for i in range(out.shape[0]):
+        k = float(lo_i + i)
+        a, b = x[lo_i + i], x[lo_i + i + 1]
         cross = k + (mid - a) / (b - a)
-    above_a, above_b = a > mid, b > mid
-    # Sub-interval [seg_lo, seg_hi] of each sample gap where the line is above mid.
-    seg_lo = np.where(above_a, k, np.where(above_b, cross, k + 1.0))
-    seg_hi = np.where(above_b, k + 1.0, np.where(above_a, cross, k))
-    overlap = np.minimum(seg_hi, end) - np.maximum(seg_lo, start)
-    return float(np.sum(np.clip(overlap, 0.0, None)) / (end - start))
+        above_a, above_b = a > mid, b > mid
+        # the part [seg_lo, seg_hi] of the sample gap where the line is above mid
+        seg_lo = k if above_a else (cross if above_b else k + 1.0)
+        seg_hi = k + 1.0 if above_b else (cross if above_a else k)
+        overlap = min(seg_hi, end) - max(seg_lo, start)
+        out[i] = overlap if overlap > 0.0 else 0.0
+    return out
 
 
 def harmonic_amplitudes(x: np.ndarray, rate_hz: float, freq_hz: float, start: float,

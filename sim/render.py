@@ -6,15 +6,17 @@ parses options into :class:`RenderOptions` and prints the paths this returns.
 
 from __future__ import annotations
 
+import copy
 import math
 import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 import blocks
-from sim import audio, kernel, measure, plots
+from sim import audio, kernel, measure
 from sim.compile import Circuit, compile_patch
 from sim.errors import PatchError, UsageError
 from sim.fileio import write_json
@@ -41,6 +43,15 @@ AUDIO_CHUNK_SECONDS = 1.0
 #: listening point. Fixed so variants keep their relative loudness; a 9 V square
 #: (+-4.5 V after DC removal) lands near -7 dBFS.
 FULL_SCALE_VOLTS = 10.0
+
+#: Threads a render runs beside its own. While the simulation runs, one imports what the
+#: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers;
+#: afterwards the gates' output currents, the WAV path and the plots run in these
+#: threads while this one reads and measures the signals. Two match a 2-core machine:
+#: the compiled readers release the GIL, so they use the second core. Each result is
+#: a function of the trace alone and is gathered in a fixed order, so the outputs are
+#: the same to the bit whatever the timing.
+RENDER_THREADS = 2
 
 #: Simulated seconds above which a progress bar is shown.
 PROGRESS_ABOVE_SECONDS = 3.0
@@ -181,6 +192,7 @@ class Rendered:
     report: dict
     paths: list[Path] = field(default_factory=list)
     times: np.ndarray | None = None
+    # name -> (m,) on the grid of ``times``: the names of report_signal_names, and gnd
     signals: dict[str, np.ndarray] = field(default_factory=dict)
     listen: np.ndarray | None = None
     sample_rate_hz: float = 0.0
@@ -284,8 +296,9 @@ GATE_KIND = "inverter"
 GROUND = "gnd"
 
 #: Samples evaluated per batch when computing output currents (bounds the memory used:
-#: a few MB for a package of gates).
-OUTPUT_BATCH_SAMPLES = 8192
+#: a few MB for a package of gates; each batch holds the GIL for a few ms only, so the
+#: threads of a render beside it are not held up long).
+OUTPUT_BATCH_SAMPLES = 4096
 
 
 def load_record_names(patch) -> list[str]:
@@ -424,20 +437,35 @@ def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
                       solver=trace.solver)
 
 
-def output_report(patch, gate_amps: np.ndarray | None, vdd_volts: np.ndarray,
+def gate_peak_amps(patch, trace, t_start: float, t_stop: float, rate_hz: float
+                   ) -> np.ndarray | None:
+    """Largest output current (A) each gate sources or sinks, shape (g,), gates in patch
+    order; None when the patch has no gates.
+
+    The peak of the interval averages of :func:`gate_current_trace` on the grid of
+    ``rate_hz`` from ``t_start`` to ``t_stop`` (s), the same grid as the report's signals.
+    """
+    gate_trace = gate_current_trace(patch, trace, t_start, rate_hz)
+    if gate_trace is None:
+        return None
+    return np.max(np.abs(gate_trace.uniform(rate_hz, t_start, t_stop)[1]), axis=0)
+
+
+def output_report(patch, peak_amps: np.ndarray | None, vdd_volts: np.ndarray,
                   warnings: list[str]) -> dict:
     """``{REF: {"peak_ma", "limit_ma"}}`` for every gate; warns when a peak passes its limit.
 
-    gate_amps: (m, g) interval-averaged output currents, gates in patch order (from
-    :func:`gate_current_trace`); vdd_volts: (m,). peak_ma: the largest current sourced or
-    sunk; limit_ma: :func:`gate_limit_amps` at the lowest supply voltage of the record.
+    peak_amps: (g,) the largest interval-averaged output current of each gate, gates in
+    patch order (from :func:`gate_peak_amps`); vdd_volts: (m,). peak_ma: the largest
+    current sourced or sunk; limit_ma: :func:`gate_limit_amps` at the lowest supply
+    voltage of the record.
     """
     gates = _gates(patch)
     if not gates:
         return {}
     kind = blocks.REGISTRY[GATE_KIND]
     rows = np.array([kind.row(part.values) + [0.0, 0.0] for _, part in gates])
-    peaks = np.max(np.abs(gate_amps), axis=0)
+    peaks = np.asarray(peak_amps)
     vdd_low = float(np.min(vdd_volts))
     limits = gate_limit_amps(rows, vdd_low)
     out = {}
@@ -604,34 +632,88 @@ def move_pitch_track(volts, rate_hz: float) -> dict:
 
 
 def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label: str = "",
-                   automation: tuple[Automation, ...] = ()):
+                   automation: tuple[Automation, ...] = (), running=None):
     """Compile and run ``patch`` for settle + seconds; returns (circuit, trace).
 
-    automation: parameters moving in time (see :func:`prepare_moves`).
+    automation: parameters moving in time (see :func:`prepare_moves`). running: optional
+    callable, called once when the compiled stepper has run its first chunk (its code is
+    loaded and it now runs without the GIL), or after the reference solver has finished.
     """
     circuit = compile_patch(patch)
     total = opts.settle + opts.seconds
     if opts.solver == "reference":
-        return circuit, simulate_reference(circuit, total, record, automation=automation)
+        trace = simulate_reference(circuit, total, record, automation=automation)
+        if running is not None:
+            running()
+        return circuit, trace
     bar = None
-    progress = None
     if opts.progress and total > PROGRESS_ABOVE_SECONDS:
         from tqdm import tqdm
 
         bar = tqdm(total=round(total, 3), unit="s", desc=progress_label or patch.name,
                    bar_format="{desc}: {percentage:3.0f}%|{bar}| {n:.2f}/{total:.2f} s simulated")
+    waiting = [running] if running is not None else []
 
-        def progress(t):
+    def progress(t):
+        if waiting:
+            waiting.pop()()
+        if bar is not None:
             bar.n = round(min(t, total), 3)
             bar.refresh()
 
     try:
         trace = simulate(circuit, total, record, opts.step_options(), automation=automation,
-                         progress=progress)
+                         progress=progress if bar is not None or waiting else None)
     finally:
         if bar is not None:
             bar.close()
+    if waiting:  # a run shorter than one chunk
+        waiting.pop()()
     return circuit, trace
+
+
+def report_signal_names(patch) -> list[str]:
+    """Names a render reads on its uniform grid (:attr:`Rendered.signals`): the probes, the
+    listening nets or listened current, ``vdd``, and each speaker's nets and coil current.
+    The gates' nets are recorded too, but only read through their output currents."""
+    current = listened_current(patch)
+    names = [*patch.probes, *patch.listen.nets, "vdd", *([current[0]] if current else [])]
+    for ref, part in patch.parts.items():
+        kind = blocks.REGISTRY[part.kind]
+        if kind.sound_ohms:
+            names += [*part.nets[kind.terminals[0][0]], f"{ref}.{kind.branches[0]}"]
+    return [name for name in dict.fromkeys(names) if name != GROUND]
+
+
+def warm_up(wav: bool, plots_too: bool) -> None:
+    """Import what a render needs after its simulation and load its compiled readers
+    from numba's disk cache (run in a thread while the simulation runs).
+
+    wav: also the WAV path's; plots_too: also import matplotlib (renders that write).
+    """
+    import scipy.fft  # noqa: F401  (measure's period estimate, audio's drift filter)
+
+    tiny = StepTrace(names=["v"], times=np.array([0.0, 0.5, 1.0]), values=np.zeros((3, 1)),
+                     order=np.array([1, 1, 2], dtype=np.int64))
+    tiny.uniform(4.0, 0.0, 1.0)
+    measure.duty_cycle(np.array([0.0, 1.0, 0.0]), 0.5, 0.0, 2.0)
+    if wav:
+        import soundfile  # noqa: F401
+
+        audio.decimate(np.zeros(2 * AUDIO_OVERSAMPLE), AUDIO_OVERSAMPLE)
+    if plots_too:
+        from sim import plots  # noqa: F401
+
+
+def wav_path(patch, circuit: Circuit, trace, record: list[str], opts: RenderOptions
+             ) -> tuple[np.ndarray, np.ndarray, dict]:
+    """The listening signal at the WAV's rate (:func:`listen_audio_volts`), its WAV
+    samples and their levels (:func:`sim.audio.to_wav_samples`)."""
+    volts = listen_audio_volts(patch, circuit, trace, record, opts.settle,
+                               opts.settle + opts.seconds, opts.rate_hz)
+    samples, info = audio.to_wav_samples(volts, full_scale_volts=opts.full_scale_volts,
+                                         normalize=opts.normalize, rate_hz=opts.rate_hz)
+    return volts, samples, info
 
 
 def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | None = None,
@@ -639,23 +721,46 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     """Simulate ``patch`` and write ``<patch>.wav``, ``.png``, ``.spectrum.png`` and ``.json``.
 
     With ``write=False`` nothing is written (the report and signals are still returned).
+    Runs parts of the work in RENDER_THREADS threads; the results do not depend on it.
     """
     opts = opts or RenderOptions()
     opts.check()
+    if write and not opts.wav:
+        raise UsageError("a render written to files needs its WAV path (RenderOptions.wav)")
     as_given = patch
     patch, automation = prepare_moves(patch, opts)
 
     current = listened_current(patch)  # a wrong listen: fails before the simulation
     record = list(dict.fromkeys([*patch.probes, *patch.listen.nets, "vdd",
                                  *([current[0]] if current else []), *load_record_names(patch)]))
-    circuit, trace = simulate_patch(patch, opts, record, automation=automation)
+    with ThreadPoolExecutor(RENDER_THREADS, thread_name_prefix="halfrail-render") as pool:
+        try:
+            # the imports start once the stepper runs without the GIL (loading its code
+            # from the disk cache needs the GIL: importing beside it would slow it down)
+            warm = []
+            circuit, trace = simulate_patch(
+                patch, opts, record, automation=automation,
+                running=lambda: warm.append(pool.submit(warm_up, opts.wav, write)))
+            warm[0].result()
+            return _after_simulation(pool, patch, as_given, automation, circuit, trace,
+                                     record, out_dir, opts, write)
+        except BaseException:
+            pool.shutdown(wait=True, cancel_futures=True)
+            raise
+
+
+def _after_simulation(pool, patch, as_given, automation, circuit, trace, record, out_dir,
+                      opts: RenderOptions, write: bool) -> Rendered:
+    """The rest of :func:`render`: measures, loads, WAV, plots and report from ``trace``."""
     fine_rate = opts.rate_hz * OVERSAMPLE
-    times, y = trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)
-    values = {name: y[:, j] for j, name in enumerate(record)}
+    t_start, t_stop = opts.settle, opts.settle + opts.seconds
+    peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
+    wav_job = pool.submit(wav_path, patch, circuit, trace, record, opts) if opts.wav else None
+
+    names = report_signal_names(patch)
+    times, y = trace.uniform(fine_rate, t_start, t_stop, [record.index(n) for n in names])
+    values = {name: y[:, j] for j, name in enumerate(names)}
     values[GROUND] = np.zeros_like(times)
-    gate_trace = gate_current_trace(patch, trace, opts.settle, fine_rate)
-    gate_amps = (gate_trace.uniform(fine_rate, opts.settle, opts.settle + opts.seconds)[1]
-                 if gate_trace is not None else None)
     warnings = supply_warnings(float(patch.supply.values["volts"]))
     for a in automation:
         if (a.ref, a.param) == ("supply", "volts"):
@@ -663,19 +768,31 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
 
     probes = {net: measure.measure_signal(values[net], fine_rate) for net in patch.probes}
     listen_fine = listen_signal(patch, circuit, values)
-    listen_report = measure.measure_signal(listen_fine, fine_rate)
+    if patch.listen.part is None and len(patch.listen.nets) == 1 and patch.listen.nets[0] in probes:
+        # the same samples as that probe: the same measures
+        listen_report = copy.deepcopy(probes[patch.listen.nets[0]])
+    else:
+        listen_report = measure.measure_signal(listen_fine, fine_rate)
     amps = moving_supply_amps(times, values["vdd"], patch.supply.values, automation)
     supply = {"mean_ma": float(np.mean(amps) * 1e3), "peak_ma": float(np.max(amps) * 1e3),
               "volts_min": float(np.min(values["vdd"]))}
     speakers = speaker_report(patch, values, warnings)
-    outputs = output_report(patch, gate_amps, values["vdd"], warnings)
+    pitch_track = move_pitch_track(listen_fine, fine_rate) if automation else None
 
-    listen_audio, samples, info = None, None, None
-    if opts.wav:
-        listen_audio = listen_audio_volts(patch, circuit, trace, record, opts.settle,
-                                          opts.settle + opts.seconds, opts.rate_hz)
-        samples, info = audio.to_wav_samples(listen_audio, full_scale_volts=opts.full_scale_volts,
-                                             normalize=opts.normalize, rate_hz=opts.rate_hz)
+    title = f"{patch.name}: {_pitch_text(listen_report)} at {listen_label(patch)}"
+    if automation:
+        title = f"{patch.name}: {_move_text(automation, pitch_track)} at {listen_label(patch)}"
+    plot_job = wav_file_job = None
+    if write:
+        base = Path(out_dir) / patch.name
+        Path(out_dir).mkdir(parents=True, exist_ok=True)
+        wav_file_job = pool.submit(_write_wav, base.with_suffix(".wav"), wav_job, opts.rate_hz)
+        plot_job = pool.submit(_plots, base, patch, opts, times, values, listen_fine,
+                               listen_report, supply, title, wav_job)
+
+    outputs = output_report(patch, peaks_job.result(), values["vdd"], warnings)
+    listen_audio, _, info = wav_job.result() if wav_job is not None else (None, None, None)
+    if info is not None:
         warnings.extend(audio.level_warnings(info, opts.full_scale_volts))
 
     report = {
@@ -697,38 +814,46 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     if automation:
         report["moves"] = [{"param": f"{a.ref}.{a.param}", "start": a.value0, "stop": a.value1,
                             "from_seconds": a.t0, "to_seconds": a.t1} for a in automation]
-        report["pitch_track"] = move_pitch_track(listen_fine, fine_rate)
+        report["pitch_track"] = pitch_track
     result = Rendered(report=report, times=times, signals=values, listen=listen_fine,
                       sample_rate_hz=fine_rate, audio_volts=listen_audio)
     if not write:
         return result
-    if not opts.wav:
-        raise UsageError("a render written to files needs its WAV path (RenderOptions.wav)")
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    base = out / patch.name
-    wav = base.with_suffix(".wav")
-    audio.write_wav(wav, samples, opts.rate_hz)
+    wav = wav_file_job.result()
+    png, spectrum = plot_job.result()
+    js = Path(f"{base}.json")
+    write_json(js, report)
+    result.paths = [wav, png, spectrum, js]
+    return result
+
+
+def _write_wav(path: Path, wav_job, rate_hz: int) -> Path:
+    """Write the samples of ``wav_job`` (a :func:`wav_path` result) to ``path``."""
+    audio.write_wav(path, wav_job.result()[1], rate_hz)
+    return path
+
+
+def _plots(base: Path, patch, opts: RenderOptions, times, values, listen_fine, listen_report,
+           supply, title, wav_job) -> tuple[Path, Path]:
+    """Write the waveform and spectrum plots of a render (one after the other: matplotlib's
+    font cache is not safe for two threads drawing at once); returns their paths."""
+    from sim import plots
+
     png = Path(f"{base}.png")
     span = PLOT_NO_PITCH_SECONDS
     if listen_report["freq_hz"]:
         span = max(PLOT_MIN_SECONDS, PLOT_PERIODS / listen_report["freq_hz"])
     shown = times < times[0] + span
-    title = f"{patch.name}: {_pitch_text(listen_report)} at {listen_label(patch)}"
-    if automation:
-        title = f"{patch.name}: {_move_text(report)} at {listen_label(patch)}"
     subtitle = (f"supply {patch.supply.values['volts']:g} V, {supply['mean_ma']:.2f} mA mean; "
                 f"from {opts.settle * 1e3:g} ms after power-on")
     plots.waveform_plot(png, times[shown] - opts.settle,
                         {net: values[net][shown] for net in patch.probes} or
                         {listen_label(patch): listen_fine[shown]}, title, subtitle)
     spectrum = Path(f"{base}.spectrum.png")
+    listen_audio = wav_job.result()[0]
     plots.spectrum_plot(spectrum, listen_audio, opts.rate_hz, listen_report["freq_hz"],
                         f"{patch.name}: spectrum at {listen_label(patch)}, {_pitch_text(listen_report)}")
-    js = Path(f"{base}.json")
-    write_json(js, report)
-    result.paths = [wav, png, spectrum, js]
-    return result
+    return png, spectrum
 
 
 def _pitch_text(m: dict) -> str:
@@ -737,10 +862,10 @@ def _pitch_text(m: dict) -> str:
     return f"{m['freq_hz']:.2f} Hz = {m['note']} {m['cents']:+.1f} cents"
 
 
-def _move_text(report: dict) -> str:
-    """``RV1.position 0 to 1, pitch 310.2 to 620.9 Hz`` for a moving render's report."""
-    moved = ", ".join(f"{m['param']} {m['start']:.4g} to {m['stop']:.4g}" for m in report["moves"])
-    found = [f for f in report["pitch_track"]["freq_hz"] if f is not None]
+def _move_text(automation, pitch_track: dict) -> str:
+    """``RV1.position 0 to 1, pitch 310.2 to 620.9 Hz`` for a moving render."""
+    moved = ", ".join(f"{a.ref}.{a.param} {a.value0:.4g} to {a.value1:.4g}" for a in automation)
+    found = [f for f in pitch_track["freq_hz"] if f is not None]
     if not found:
         return f"{moved}, no steady pitch"
     return f"{moved}, pitch {found[0]:.1f} to {found[-1]:.1f} Hz"

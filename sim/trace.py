@@ -17,33 +17,20 @@ import numba
 import numpy as np
 
 
-@numba.njit(cache=True)
-def _segment_integral(ta, tb, t0, t1, t2, y0, y1, y2, quad):
-    """Integral over [ta, tb] of the interpolant on the step ending at t2.
-
-    quad: quadratic through (t0,y0),(t1,y1),(t2,y2); else linear through (t1,y1),(t2,y2).
-    Simpson's rule, exact for both.
-    """
-    tm = 0.5 * (ta + tb)
-    if quad:
-        s = 0.0
-        for tt, wgt in ((ta, 1.0), (tm, 4.0), (tb, 1.0)):
-            l0 = (tt - t1) * (tt - t2) / ((t0 - t1) * (t0 - t2))
-            l1 = (tt - t0) * (tt - t2) / ((t1 - t0) * (t1 - t2))
-            l2 = (tt - t0) * (tt - t1) / ((t2 - t0) * (t2 - t1))
-            s += wgt * (l0 * y0 + l1 * y1 + l2 * y2)
-        return s * (tb - ta) / 6.0
-    slope = (y2 - y1) / (t2 - t1)
-    return (tb - ta) * (y1 + slope * (tm - t1))
-
-
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def box_average(t, y, order, t_first, rate_hz, count):
     """Averages of y over [T_i - d/2, T_i + d/2], T_i = t_first + i d, d = 1/rate_hz.
 
     t: (K,) accepted times, increasing; y: (K, m) values; order: (K,) interpolation
     order on the interval ending at each point. Returns (count, m). The grid must lie
     inside [t[0], t[-1]].
+
+    The part of a sample interval that lies within one step is integrated by Simpson's
+    rule, exact for the step's interpolant: the quadratic through the step's point and
+    the two before it (order 2), else the straight line through its two ends. The
+    Lagrange weights of a piece do not depend on the column, so they are formed once and
+    applied to every column; each column's arithmetic is the same whichever columns are
+    read together. Releases the GIL (a reader thread can run beside the simulation).
     """
     m = y.shape[1]
     out = np.zeros((count, m))
@@ -51,24 +38,61 @@ def box_average(t, y, order, t_first, rate_hz, count):
     acc = np.zeros(m)
     prev = np.zeros(m)
     cursor = t_first - 0.5 * d
-    kseg = 1
-    while kseg < t.shape[0] - 1 and t[kseg] < cursor:
-        kseg += 1
+    last = t.shape[0] - 1
+    # the first step ending at or after the grid's start
+    kseg = max(1, min(last, np.searchsorted(t, cursor)))
+    seg = -1  # the step the constants below belong to
+    t0 = t1 = 0.0
+    quad = False
+    den0 = den1 = den2 = 0.0
+    b0 = b1 = b2 = 0.0
     for j in range(count + 1):
         edge = t_first + (j - 0.5) * d
         while True:
             t2 = t[kseg]
             upper = min(edge, t2)
             if upper > cursor:
-                t1 = t[kseg - 1]
-                quad = order[kseg] == 2 and kseg >= 2
-                t0 = t[kseg - 2] if kseg >= 2 else t1
-                for c in range(m):
-                    y0 = y[kseg - 2, c] if kseg >= 2 else 0.0
-                    acc[c] += _segment_integral(cursor, upper, t0, t1, t2, y0, y[kseg - 1, c],
-                                                y[kseg, c], quad)
+                fresh = seg != kseg
+                if fresh:
+                    seg = kseg
+                    t1 = t[kseg - 1]
+                    quad = order[kseg] == 2 and kseg >= 2
+                    t0 = t[kseg - 2] if kseg >= 2 else t1
+                    den0 = (t0 - t1) * (t0 - t2)
+                    den1 = (t1 - t0) * (t1 - t2)
+                    den2 = (t2 - t0) * (t2 - t1)
+                ta, tb = cursor, upper
+                tm = 0.5 * (ta + tb)
+                if quad:
+                    # Lagrange weights at the piece's ends and middle (Simpson's nodes);
+                    # a piece starts where the one before ended: within one step, the
+                    # weights at its start are those at the last one's end
+                    if fresh:
+                        a0 = (ta - t1) * (ta - t2) / den0
+                        a1 = (ta - t0) * (ta - t2) / den1
+                        a2 = (ta - t0) * (ta - t1) / den2
+                    else:
+                        a0, a1, a2 = b0, b1, b2
+                    m0 = (tm - t1) * (tm - t2) / den0
+                    m1 = (tm - t0) * (tm - t2) / den1
+                    m2 = (tm - t0) * (tm - t1) / den2
+                    b0 = (tb - t1) * (tb - t2) / den0
+                    b1 = (tb - t0) * (tb - t2) / den1
+                    b2 = (tb - t0) * (tb - t1) / den2
+                    for c in range(m):
+                        y0, y1, y2 = y[kseg - 2, c], y[kseg - 1, c], y[kseg, c]
+                        s = 0.0
+                        s += 1.0 * (a0 * y0 + a1 * y1 + a2 * y2)
+                        s += 4.0 * (m0 * y0 + m1 * y1 + m2 * y2)
+                        s += 1.0 * (b0 * y0 + b1 * y1 + b2 * y2)
+                        acc[c] += s * (tb - ta) / 6.0
+                else:
+                    for c in range(m):
+                        y1, y2 = y[kseg - 1, c], y[kseg, c]
+                        slope = (y2 - y1) / (t2 - t1)
+                        acc[c] += (tb - ta) * (y1 + slope * (tm - t1))
                 cursor = upper
-            if edge <= t2 or kseg == t.shape[0] - 1:
+            if edge <= t2 or kseg == last:
                 break
             kseg += 1
         if j > 0:

@@ -8,8 +8,9 @@ import numpy as np
 import pytest
 import soundfile
 
-from sim.audio import (LOUD_RMS_DBFS, clip_to_full_scale, decimate, first_play_warning,
-                       remove_dc, to_wav_samples, write_wav)
+from sim.audio import (LOUD_RMS_DBFS, PASSBAND_FRACTION, STOPBAND_ATTENUATION_DB,
+                       antialias_taps, clip_to_full_scale, decimate, first_play_warning,
+                       kaiser_lowpass_taps, remove_dc, to_wav_samples, write_wav)
 from sim.fileio import atomic_path, write_json, write_text
 from sim.plots import spectrum_plot, waveform_plot
 
@@ -60,6 +61,68 @@ def test_decimation_by_one_is_a_copy_and_a_bad_factor_is_rejected():
     for bad in (0, 2.5, -4):
         with pytest.raises(ValueError):
             decimate(x, bad)
+
+
+@pytest.mark.parametrize("factor", [2, 4, 16])
+def test_antialias_taps_are_scipys_kaiser_window_design(factor):
+    # source: scipy.signal.kaiserord and firwin, the same Kaiser window method (an
+    # independent implementation); ours rounds the length up to odd
+    from scipy.signal import firwin, kaiserord
+
+    stop = 1.0 / factor
+    numtaps, beta = kaiserord(STOPBAND_ATTENUATION_DB, stop - PASSBAND_FRACTION * stop)
+    reference = firwin(numtaps | 1, 0.5 * (PASSBAND_FRACTION * stop + stop),
+                       window=("kaiser", beta))
+    taps = antialias_taps(factor)
+    assert taps.size == reference.size
+    assert np.max(np.abs(taps - reference)) < 1e-15
+
+
+def test_a_kaiser_design_below_fifty_db_or_with_crossed_edges_is_refused():
+    for attenuation, pass_edge, stop_edge in ((40.0, 0.2, 0.3), (80.0, 0.3, 0.2),
+                                              (80.0, 0.0, 0.3)):
+        with pytest.raises(ValueError):
+            kaiser_lowpass_taps(attenuation, pass_edge, stop_edge)
+
+
+@pytest.mark.parametrize("factor, n", [(4, 1001), (16, 5000), (16, 7), (3, 100)])
+def test_decimation_is_the_filter_sum_at_every_kept_sample_with_held_ends(factor, n):
+    # common practice: output k = sum_i h[i] x[k factor + half - i], with the record
+    # held at its end values beyond its ends (written out here term by term)
+    x = np.random.default_rng(n).standard_normal(n)
+    h = antialias_taps(factor)
+    half = (h.size - 1) // 2
+    index = np.clip(np.arange(0, n, factor)[:, None] + half - np.arange(h.size)[None, :],
+                    0, n - 1)
+    direct = np.array([math.fsum(row) for row in h[None, :] * x[index]])
+    assert np.max(np.abs(decimate(x, factor) - direct)) < 1e-13
+
+
+@pytest.mark.parametrize("alias_hz", [AUDIO_RATE_HZ - 15000.0, AUDIO_RATE_HZ + 15000.0,
+                                      4 * AUDIO_RATE_HZ + 15000.0])
+def test_decimation_by_sixteen_keeps_the_audio_band_and_stops_what_would_alias(alias_hz):
+    rate_hz = 16 * AUDIO_RATE_HZ
+    passed = decimate(sine(15000.0, 0.2, rate_hz), 16)
+    stopped = decimate(sine(alias_hz, 0.2, rate_hz), 16)   # lands on 15 kHz if not stopped
+    assert abs(steady_level_db(passed)) < 0.1          # design target: flat audio band
+    assert steady_level_db(stopped) < -STOPBAND_ATTENUATION_DB + 3.0   # design target
+
+
+def test_drift_removal_near_the_ends_matches_a_direct_moving_average():
+    # The definition written out: x minus its mean, minus the Hann-weighted average of
+    # the samples within half a window that lie inside the record (common practice).
+    x = 2.0 + np.random.default_rng(3).standard_normal(3000)
+    rate_hz = 5000.0
+    taps = int(round(0.4 * rate_hz)) | 1
+    weights = np.hanning(taps + 2)[1:-1]
+    centred = x - np.mean(x)
+    half = taps // 2
+    expected = np.empty_like(x)
+    for i in (0, 1, 700, 1500, 2999):
+        lo, hi = max(0, i - half), min(x.size, i + half + 1)
+        w = weights[half - (i - lo):half + (hi - i)]
+        expected[i] = centred[i] - np.sum(w * centred[lo:hi]) / np.sum(w)
+        assert remove_dc(x, rate_hz)[i] == pytest.approx(expected[i], abs=1e-12)
 
 
 def test_dc_and_slow_drift_are_removed_and_the_tone_kept():

@@ -7,7 +7,7 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.signal import chirp
 
-from sim.measure import MEASURE_KEYS, find_pitch, measure_signal, pitch_track
+from sim.measure import MEASURE_KEYS, duty_cycle, find_pitch, measure_signal, pitch_track
 from sim.notes import note_of
 
 RATE_HZ = 192000.0
@@ -251,3 +251,12 @@ def test_pitch_track_of_noise_is_all_nan():
     x = np.random.default_rng(5).standard_normal(int(0.2 * RATE_HZ))
     _, freqs_hz = pitch_track(x, RATE_HZ, 0.05)
     assert freqs_hz.size == 7 and np.all(np.isnan(freqs_hz))
+
+
+@pytest.mark.parametrize("volts", [[0.0, 1.0, 1.0, 0.0], [0.5, 0.5, 1.0, 0.5]])
+def test_duty_counts_the_time_above_mid_on_straight_lines_between_samples(volts):
+    # Worked by hand (common practice, straight lines between samples): 0 -> 1 -> 1 -> 0
+    # is above 0.5 for half of the first gap, all of the second and half of the third;
+    # 0.5 -> 0.5 -> 1 -> 0.5 rests on the level (not above) for the first gap, then is
+    # above for the other two: 2 of 3 samples' time either way.
+    assert duty_cycle(np.array(volts), 0.5, 0.0, 3.0) == pytest.approx(2.0 / 3.0, abs=1e-15)

@@ -43,3 +43,26 @@ def test_uniform_grid_has_the_asked_rate_and_span():
     assert grid.size == 500
     assert np.allclose(np.diff(grid), 1e-3)
     assert np.allclose(avg, 2.0)
+
+
+def test_a_column_reads_the_same_to_the_bit_alone_or_with_others():
+    # The weights of a piece are shared by the columns read together; each column's
+    # arithmetic must not depend on the others (common practice: reproducible reads).
+    rng = np.random.default_rng(5)
+    t = np.sort(np.concatenate([[0.0, 1.0], rng.uniform(0, 1, 300)]))
+    values = np.column_stack([np.sin(7 * t), t ** 2, rng.standard_normal(t.size)])
+    order = rng.integers(1, 3, t.size)
+    tr = StepTrace(names=["a", "b", "c"], times=t, values=values, order=order)
+    _, together = tr.uniform(997.0, 0.05, 0.95)
+    for c in range(3):
+        _, alone = tr.uniform(997.0, 0.05, 0.95, [c])
+        assert np.array_equal(alone[:, 0], together[:, c])
+
+
+def test_a_grid_starting_late_in_the_trace_reads_the_same_averages():
+    # source: calculus, as above: averages of t^2 over each interval, wherever the grid starts
+    t = np.linspace(0.0, 1.0, 2001)
+    tr = _trace(t, t ** 2, [1] + [2] * (t.size - 1))
+    grid, avg = tr.uniform(100.0, 0.9, 0.99)
+    a, b = grid - 0.005, grid + 0.005
+    assert np.max(np.abs(avg[:, 0] - (b ** 3 - a ** 3) / (3 * (b - a)))) < 1e-12
