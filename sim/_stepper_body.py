@@ -43,6 +43,8 @@ Method
 # The names below are resolved in the generated module that includes this text.
 # flake8: noqa: F821
 
+import math
+
 import numpy as np
 import numba
 
@@ -172,6 +174,33 @@ def lu_solve(A, b, n):
     return True
 
 
+@numba.njit(cache=True)
+def mass_rows(M):
+    """The nonzeros of M[1:, 1:] by rows (compressed rows): entries mrow[i]..mrow[i+1]-1
+    of mcol (columns, increasing) and mval (values) belong to row i (row 0, ground, is
+    empty). Newton's iteration reads the mass matrix only there."""
+    n = M.shape[0]
+    count = 0
+    for i in range(1, n):
+        for j in range(1, n):
+            if M[i, j] != 0.0:
+                count += 1
+    mrow = np.zeros(n + 1, dtype=np.int64)
+    mcol = np.zeros(count, dtype=np.int64)
+    mval = np.zeros(count)
+    q = 0
+    for i in range(n):
+        mrow[i] = q
+        if i > 0:
+            for j in range(1, n):
+                if M[i, j] != 0.0:
+                    mcol[q] = j
+                    mval[q] = M[i, j]
+                    q += 1
+    mrow[n] = q
+    return mrow, mcol, mval
+
+
 @lean
 def apply_automation(pf, auto, t):
     """Move automated parameters: rows (flat index, t0, t1, v0, v1), linear in time."""
@@ -188,11 +217,13 @@ def apply_automation(pf, auto, t):
 
 
 @lean
-def newton(xn, t_new, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xref, jump_v, cnt,
-           st):
+def newton(xn, t_new, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xref, jump_v,
+           cnt, st):
     """Solve M (a0 xn + c) + f(xn, t_new) = 0 for xn (in place, starting from xn).
 
-    ``v`` (n,) is work space (the derivative a0 xn + c of the current iterate).
+    ``v`` (n,) is work space (the derivative a0 xn + c of the current iterate). The mass
+    matrix comes as its nonzeros by rows (:func:`mass_rows`); the stamps write their
+    Jacobian straight into ``J``, and a0 M is added where M is nonzero.
 
     Returns (outcome, worst unknown index). ``jump_v`` > 0 makes an iterate farther than
     that from ``xref`` (volts) end the iteration as N_JUMPED. The iteration stops once
@@ -208,18 +239,16 @@ def newton(xn, t_new, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xref, jump_v, 
     conv_prev = -1.0
     for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
-        evaluate_parts(xn, t_new, P, N, D, f, G)
+        evaluate_parts(xn, t_new, P, N, D, f, J)
         for j in range(1, n):
             v[j] = a0 * xn[j] + c[j]
         for i in range(1, n):
             s = f[i]
-            for j in range(1, n):
-                mij = M[i, j]
-                if mij != 0.0:
-                    s += mij * v[j]
+            for q in range(mrow[i], mrow[i + 1]):
+                j = mcol[q]
+                s += mval[q] * v[j]
+                J[i, j] += a0 * mval[q]
             r[i] = -s
-            for j in range(1, n):
-                J[i, j] = a0 * M[i, j] + G[i, j]
         if not lu_solve(J, r, n):
             return N_FAILED, worst
         big = 0.0
@@ -301,8 +330,8 @@ def _extrapolate2(h, h1, h2, x, x1, x2, out):
 
 
 @lean
-def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, P, N, D, unk, opt, auto,
-             f, G, J, r, v, jump_v, cnt, st, x2):
+def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol, mval, pf, P, N, D, unk,
+             opt, auto, f, J, r, v, jump_v, cnt, st, x2):
     """One implicit step of size h from (t, x); the result in xn. Returns (outcome, worst).
 
     Leaves the linear predictor in ``xp`` (the jump test's reference and backward
@@ -318,8 +347,8 @@ def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, P, N, D, unk, opt
             guess = xq
     for i in range(x.shape[0]):
         xn[i] = guess[i]
-    return newton(xn, t + h, a0, c, M, P, N, D, unk, opt, f, G, J, r, v, xp, jump_v,
-                  cnt, st)
+    return newton(xn, t + h, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xp,
+                  jump_v, cnt, st)
 
 
 @lean
@@ -373,6 +402,13 @@ def _accept(st, t_new, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k, order):
 
 
 @lean
+def _root(value, order):
+    """value ** (1 / (order + 1)), the step-size controller's exponent for an order-1 or
+    order-2 step (a square or cube root: several times cheaper than a general power)."""
+    return math.sqrt(value) if order == 1 else np.cbrt(value)
+
+
+@lean
 def _flipping(x, x1, h, unk, opt):
     """True when a fast voltage unknown moved by more than opt[O_FLIP_VOLTS] in the step
     just accepted (x1 -> x, size h) at more than opt[O_FLIP_SLEW] volts per second."""
@@ -395,8 +431,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
     """
     n = x.shape[0]
     P, N, D = tables(pf, nf, tab, df)
+    mrow, mcol, mval = mass_rows(M)
     f = np.zeros(n)
-    G = np.zeros((n, n))
     J = np.zeros((n, n))
     r = np.zeros(n)
     c = np.zeros(n)
@@ -432,8 +468,9 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         h2 = st[S_H2]
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
         jv = jump_v if mode == MODE_NORMAL else 0.0
-        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, M, pf, P, N,
-                                  D, unk, opt, auto, f, G, J, r, v, jv, cnt, st, x2)
+        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol,
+                                  mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv, cnt,
+                                  st, x2)
         if mode == MODE_NORMAL and outcome != N_OK:
             if h > event_dt:
                 # A flip inside (t, t+h]: bracket it by bisection.
@@ -443,9 +480,9 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 while hi - lo > event_dt:
                     mid = 0.5 * (lo + hi)
                     cnt[K_TRIALS] += 1
-                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, M, pf, P,
-                                      N, D, unk, opt, auto, f, G, J, r, v, jump_v, cnt, st,
-                                      x2)
+                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, mrow,
+                                      mcol, mval, pf, P, N, D, unk, opt, auto, f, J, r, v,
+                                      jump_v, cnt, st, x2)
                     if o2 == N_OK:
                         lo = mid
                         have_lo = True
@@ -486,20 +523,20 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
             relax = opt[O_RECOVER_WEIGHT] if st[S_RELAX] > 0.0 else 0.0
             err = _error_norm(order, h, h1, h2, x, xn, xq if order == 2 else xp, unk, rtol,
                               mode == MODE_NORMAL, relax)
-            expo = 1.0 / (order + 1.0)
             if err > 1.0:
                 cnt[K_REJECT_ERROR] += 1
-                st[S_H] = h * max(MIN_SHRINK, SAFETY * err ** (-expo))
+                st[S_H] = h * max(MIN_SHRINK, SAFETY / _root(err, order))
                 if st[S_H] < hmin:
                     st[S_FAIL_INDEX] = worst
                     return k, 2
                 continue
             top = MAX_GROWTH if mode == MODE_NORMAL else growth
             if err > 0.0:
-                fac = min(top, max(MIN_SHRINK, SAFETY * err ** (-expo)))
+                ideal = SAFETY / _root(err, order)
+                fac = min(top, max(MIN_SHRINK, ideal))
                 if mode == MODE_NORMAL and st[S_ERR_OLD] > 0.0:
                     # Gustafsson: also follow the trend of the error from the last step
-                    trend = SAFETY * err ** (-expo) * (h / h1) * (st[S_ERR_OLD] / err) ** expo
+                    trend = ideal * (h / h1) * _root(st[S_ERR_OLD] / err, order)
                     fac = max(MIN_SHRINK, min(fac, trend))
             else:
                 fac = top
