@@ -31,9 +31,7 @@ Method
   part of a flip: recovery mode (below) takes over at once, and until the step has grown
   back to ``RELAX_SECONDS`` the error of fast unknowns is weighted by ``recover_weight``
   (their nanosecond transient is inaudible; the flip's timing was decided during the
-  slow passage, resolved at full tolerance). Recovery holds through the flip's tail
-  (``RECOVER_HOLD_SECONDS``), and the jump test stays off while the error is relaxed, so
-  the tail does not cause a second restart.
+  slow passage, resolved at full tolerance).
 - Events: a step whose Newton iteration fails, or whose solution jumps by more than
   ``jump_volts`` from the predictor, contains a flip of a regenerative loop (a Schmitt
   trigger switching). The step is bisected until the flip instant is bracketed to
@@ -82,8 +80,7 @@ S_HNORMAL = 8
 S_ERR_OLD = 9  # error norm of the last accepted normal step (0: none)
 S_RATE = 10  # Newton contraction rate remembered across steps
 S_RELAX = 11  # 1.0 after a flip until the step is back to RELAX_SECONDS
-S_RECOVER_STEPS = 12  # recovery steps taken since the last flip trigger
-S_SIZE = 13
+S_SIZE = 12
 
 # per-unknown table ``unk`` columns
 U_ATOL = 0
@@ -129,17 +126,6 @@ SAFETY = 0.9
 #: integrator's path) are watched again before they matter (measured: relaxing until
 #: the fast error is back within tolerance instead costs 5 cents on the saw scenario).
 RELAX_SECONDS = 10e-6
-#: After a flip trigger, recovery (backward Euler, no jump test) holds while the step is
-#: below RECOVER_HOLD_SECONDS (the flip's own tail: stray capacitances settling through
-#: kilohms), for at most RECOVER_HOLD_STEPS steps; and while the fast unknowns' error is
-#: relaxed, BDF2 does not run the jump test either. Handing back to BDF2 as soon as the
-#: error rather than the growth limit sized the step (as at start-up) let the jump test
-#: fire on that tail: a second restart from 1 ns in every flip. Measured on the oscillator:
-#: Newton iterations -6 % (-5 % on the mixer, +4 % on the saw), pitch within 0.01 cent,
-#: the square's alias floor unchanged at -85 dB; holding backward Euler through the whole
-#: relaxed stretch (to 10 us) saves 9 % but its linear interpolation costs 6 dB of floor.
-RECOVER_HOLD_SECONDS = 300e-9
-RECOVER_HOLD_STEPS = 20
 #: Smallest error norm remembered for the predictive controller (keeps the trend
 #: factor finite after an exact step).
 ERR_FLOOR = 1e-4
@@ -481,7 +467,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         h1 = st[S_H1]
         h2 = st[S_H2]
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
-        jv = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
+        jv = jump_v if mode == MODE_NORMAL else 0.0
         outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol,
                                   mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv, cnt,
                                   st, x2)
@@ -564,12 +550,8 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
             hn = h * fac
             # Back to BDF2 once the step is back where it was, or as soon as the error
             # controller rather than the recovery ramp limits the step (otherwise a
-            # tight tolerance would keep the whole run first-order); after a flip
-            # trigger, not before its tail is over (RECOVER_HOLD_SECONDS).
-            st[S_RECOVER_STEPS] += 1.0
-            held = (st[S_RELAX] > 0.0 and h < RECOVER_HOLD_SECONDS
-                    and st[S_RECOVER_STEPS] < RECOVER_HOLD_STEPS)
-            if hn >= st[S_HGOAL] or (nh >= 1 and fac < growth and not held):
+            # tight tolerance would keep the whole run first-order).
+            if hn >= st[S_HGOAL] or (nh >= 1 and fac < growth):
                 hn = min(hn, st[S_HGOAL])
                 st[S_MODE] = MODE_NORMAL
             st[S_H] = hn
@@ -581,7 +563,6 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 cnt[K_EVENTS] += 1
                 st[S_MODE] = MODE_RECOVER
                 st[S_RELAX] = 1.0
-                st[S_RECOVER_STEPS] = 0.0
                 st[S_HGOAL] = hmax
                 st[S_ERR_OLD] = 0.0
 
