@@ -54,7 +54,7 @@ def _parser(command: str | None = None) -> argparse.ArgumentParser:
     r.add_argument("--settle", type=float, default=d.settle, metavar="S",
                    help=f"seconds simulated after power-on before keeping (default {d.settle:g}; "
                         "0 keeps the power-on transient)")
-    r.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    _add_out_option(r)
     r.add_argument("--set", action="append", default=[], metavar="REF.param=value", dest="overrides",
                    help="override a part parameter, e.g. R3.value=47k or supply.volts=7.5 "
                         "(repeatable)")
@@ -66,8 +66,7 @@ def _parser(command: str | None = None) -> argparse.ArgumentParser:
     r.add_argument("--normalize", action="store_true", help="scale the WAV's peak to -1 dBFS instead")
     r.add_argument("--solver", choices=SOLVERS, default=d.solver,
                    help="compiled (default) or reference (scipy Radau: slow, for cross-checks)")
-    r.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
-                   help="accuracy of the compiled stepper (default: default)")
+    _add_quality_option(r, d)
     r.add_argument("--quiet", action="store_true", help="no progress bar")
     r.add_argument("--verbose", action="store_true", help="print the solver's work counters")
     r.add_argument("--move", action="append", default=[], metavar="REF.param=START:STOP",
@@ -149,6 +148,17 @@ def _kinds(args) -> int:
     return 0
 
 
+def _add_out_option(p) -> None:
+    """``--out DIR``: where every command writes its files."""
+    p.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+
+
+def _add_quality_option(p, d: RenderOptions) -> None:
+    """``--quality``: the compiled stepper's tolerance, for every command that renders."""
+    p.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
+                   help="accuracy of the compiled stepper (default: default)")
+
+
 def _add_diff_parser(sub, d: RenderOptions) -> None:
     c = sub.add_parser("diff", help=COMMAND_HELP["diff"],
                        description="Render two variants (two files, or one file with --a/--b "
@@ -165,15 +175,13 @@ def _add_diff_parser(sub, d: RenderOptions) -> None:
                    help=f"seconds of audio to keep of each (default {d.seconds:g})")
     c.add_argument("--settle", type=float, default=d.settle, metavar="S",
                    help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
-    c.add_argument("--out", default="renders", metavar="DIR",
-                   help="output folder (default renders/)")
+    _add_out_option(c)
     c.add_argument("--rate", type=int, default=d.rate_hz, metavar="HZ",
                    help=f"WAV sample rate (default {d.rate_hz})")
     c.add_argument("--full-scale", type=float, default=d.full_scale_volts, metavar="V",
                    help=f"volts that make a full-scale sample, the same for A and B "
                         f"(default {d.full_scale_volts:g})")
-    c.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
-                   help="accuracy of the compiled stepper (default: default)")
+    _add_quality_option(c, d)
     c.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -284,12 +292,11 @@ def _add_batch_options(p, d: RenderOptions, seconds_default: float | None = None
                    help=f"seconds kept of each render (default {seconds:g})")
     p.add_argument("--settle", type=float, default=d.settle, metavar="S",
                    help=f"seconds simulated after power-on before keeping (default {d.settle:g})")
-    p.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    _add_out_option(p)
     p.add_argument("--set", action="append", default=[], metavar="REF.param=value",
                    dest="overrides", help="override a part parameter first, e.g. R2.value=120k "
                                           "(repeatable)")
-    p.add_argument("--quality", choices=list(QUALITIES), default=d.quality,
-                   help="accuracy of the compiled stepper (default: default)")
+    _add_quality_option(p, d)
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -419,7 +426,7 @@ def _add_check_parsers(sub) -> None:
                                    "and write DIR/<patch>.check.json. Exit status 1 when any "
                                    "error is found.")
     c.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
-    c.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    _add_out_option(c)
     c.add_argument("--set", action="append", default=[], metavar="REF.param=value",
                    dest="overrides", help="override a part parameter, e.g. R3.value=47k (repeatable)")
     c.add_argument("--simulate", action="store_true",
@@ -436,7 +443,7 @@ def _add_check_parsers(sub) -> None:
                                    "DIR/<patch>.sheet.md (pins, wiring net by net, parts), "
                                    "<patch>.bom.csv and <patch>.sheet.json.")
     s.add_argument("patch", metavar="PATCH", help="patch file (YAML)")
-    s.add_argument("--out", default="renders", metavar="DIR", help="output folder (default renders/)")
+    _add_out_option(s)
     s.add_argument("--set", action="append", default=[], metavar="REF.param=value",
                    dest="overrides", help="override a part parameter, e.g. R3.value=47k (repeatable)")
 
