@@ -301,16 +301,29 @@ GROUND = "gnd"
 OUTPUT_BATCH_SAMPLES = 4096
 
 
-def load_record_names(patch) -> list[str]:
-    """Nets and currents a render records for the load report, besides probes and
-    listening nets: each speaker's nets and coil current, each gate's input and output
-    nets (``gnd`` excluded: it is 0 V and never an unknown)."""
+def _listened_names(patch) -> list[str]:
+    """The probes, the listening nets or listened current, and ``vdd``."""
+    current = listened_current(patch)
+    return [*patch.probes, *patch.listen.nets, "vdd", *([current[0]] if current else [])]
+
+
+def _speaker_names(patch) -> list[str]:
+    """Each speaker's nets and coil current (what its report reads)."""
     names = []
     for ref, part in patch.parts.items():
         kind = blocks.REGISTRY[part.kind]
         if kind.sound_ohms:
             names += [*part.nets[kind.terminals[0][0]], f"{ref}.{kind.branches[0]}"]
-        elif part.kind == GATE_KIND:
+    return names
+
+
+def load_record_names(patch) -> list[str]:
+    """Nets and currents a render records for the load report, besides probes and
+    listening nets: each speaker's nets and coil current, each gate's input and output
+    nets (``gnd`` excluded: it is 0 V and never an unknown)."""
+    names = _speaker_names(patch)
+    for part in patch.parts.values():
+        if part.kind == GATE_KIND:
             names += [part.nets["in"][0], part.nets["out"][0]]
     return [name for name in names if name != GROUND]
 
@@ -676,12 +689,7 @@ def report_signal_names(patch) -> list[str]:
     """Names a render reads on its uniform grid (:attr:`Rendered.signals`): the probes, the
     listening nets or listened current, ``vdd``, and each speaker's nets and coil current.
     The gates' nets are recorded too, but only read through their output currents."""
-    current = listened_current(patch)
-    names = [*patch.probes, *patch.listen.nets, "vdd", *([current[0]] if current else [])]
-    for ref, part in patch.parts.items():
-        kind = blocks.REGISTRY[part.kind]
-        if kind.sound_ohms:
-            names += [*part.nets[kind.terminals[0][0]], f"{ref}.{kind.branches[0]}"]
+    names = [*_listened_names(patch), *_speaker_names(patch)]
     return [name for name in dict.fromkeys(names) if name != GROUND]
 
 
@@ -730,9 +738,8 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
     as_given = patch
     patch, automation = prepare_moves(patch, opts)
 
-    current = listened_current(patch)  # a wrong listen: fails before the simulation
-    record = list(dict.fromkeys([*patch.probes, *patch.listen.nets, "vdd",
-                                 *([current[0]] if current else []), *load_record_names(patch)]))
+    # (a wrong listen fails here, before the simulation)
+    record = list(dict.fromkeys([*_listened_names(patch), *load_record_names(patch)]))
     with ThreadPoolExecutor(RENDER_THREADS, thread_name_prefix="halfrail-render") as pool:
         try:
             # the imports start once the stepper runs without the GIL (loading its code
