@@ -29,9 +29,12 @@ Method
 - Flips: an accepted normal step in which a fast unknown (no part capacitance) moved by
   more than ``flip_volts`` at more than ``flip_slew`` volts per second is the regenerative
   part of a flip: recovery mode (below) takes over at once, and until the step has grown
-  back to ``RELAX_SECONDS`` the error of fast unknowns is weighted by ``recover_weight``
-  (their nanosecond transient is inaudible; the flip's timing was decided during the
-  slow passage, resolved at full tolerance).
+  back to ``RELAX_SECONDS`` the step is "relaxed": its error is measured on the part
+  capacitors' own voltages (the slow states that carry the flip's timing on) and on
+  audible nets by their share of an audio sample, not on the node voltages' nanosecond
+  transient (inaudible; the flip's timing was decided during the slow passage, resolved
+  at full tolerance). While relaxed, Newton's method starts the fast unknowns from their
+  last value and the jump test is off.
 - Events: a step whose Newton iteration fails, or whose solution jumps by more than
   ``jump_volts`` from the predictor, contains a flip of a regenerative loop (a Schmitt
   trigger switching). The step is bisected until the flip instant is bracketed to
@@ -60,12 +63,13 @@ O_GROWTH = 7
 O_NEWTON_FRAC = 8
 O_DV_MAX = 9
 O_H_RESTART = 10
-O_RECOVER_WEIGHT = 11
+O_SAMPLE_SECONDS = 11
 O_FLIP_VOLTS = 12
 O_FLIP_SLEW = 13
 O_RATE_FLOOR = 14
 O_QUAD_GUESS = 15
-O_SIZE = 16
+O_LAND = 16  # 1.0: the last step lands exactly on O_T_END (else it may pass it)
+O_SIZE = 17
 
 # state vector ``st``
 S_T = 0
@@ -79,14 +83,16 @@ S_FAIL_INDEX = 7
 S_HNORMAL = 8
 S_ERR_OLD = 9  # error norm of the last accepted normal step (0: none)
 S_RATE = 10  # Newton contraction rate remembered across steps
-S_RELAX = 11  # 1.0 after a flip until the step is back to RELAX_SECONDS
-S_SIZE = 12
+S_RELAX = 11  # > 0 after a flip until relaxed stepping ends (see run)
+S_FLIP_T = 12  # time of the last flip's recovery start
+S_SIZE = 13
 
 # per-unknown table ``unk`` columns
 U_ATOL = 0
 U_WEIGHT = 1
 U_VOLT = 2
 U_SLOW = 3  # 1.0 where a part's capacitance or inductance sits on the unknown
+U_AUDIBLE = 4  # 1.0 where the unknown is heard (a listened net or current)
 
 # counters ``cnt``
 K_STEPS = 0
@@ -126,6 +132,9 @@ SAFETY = 0.9
 #: integrator's path) are watched again before they matter (measured: relaxing until
 #: the fast error is back within tolerance instead costs 5 cents on the saw scenario).
 RELAX_SECONDS = 10e-6
+#: ... and at the latest this long after the flip (when a part asks for steps shorter
+#: than RELAX_SECONDS, e.g. a high test tone).
+RELAX_LIMIT_SECONDS = 50e-6
 #: Smallest error norm remembered for the predictive controller (keeps the trend
 #: factor finite after an exact step).
 ERR_FLOOR = 1e-4
@@ -345,29 +354,38 @@ def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol, mval, pf, P,
         _extrapolate2(h, h1, st[S_H2], x, x1, x2, xq)
         if opt[O_QUAD_GUESS] > 0.0:
             guess = xq
+    hold = st[S_RELAX] > 0.0
     for i in range(x.shape[0]):
-        xn[i] = guess[i]
+        # After a flip the fast unknowns settle within a few of their time constants:
+        # extrapolating their decay over a longer step overshoots (past a rail, where an
+        # input clamp makes Newton's method crawl); their last value is the better start.
+        xn[i] = x[i] if (hold and unk[i, U_SLOW] == 0.0) else guess[i]
     return newton(xn, t + h, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xp,
                   jump_v, cnt, st)
 
 
 @lean
-def _weight(unk, i, weighted, relax_weight):
-    """Error weight of unknown i (see _error_norm)."""
-    if relax_weight > 0.0 and unk[i, U_SLOW] == 0.0:
-        return relax_weight
-    return unk[i, U_WEIGHT] if weighted else 1.0
-
-
-@lean
-def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relax_weight):
+def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relaxed, sample_seconds,
+                mrow, mcol, mval):
     """Weighted max-norm of the local error estimate (1.0 = at tolerance).
 
     ``xe``: the extrapolating predictor of the step's order (quadratic through the last
     three points for BDF2, linear for backward Euler); the local error is its distance
     from the corrector ``xn`` times the method's factor (Milne's device).
-    ``weighted`` False holds every unknown to the full tolerance. ``relax_weight`` > 0
-    (after a flip) weights the error of fast unknowns (no part capacitance) by it instead."""
+    ``weighted`` False holds every unknown to the full tolerance, else unknown i's error
+    is divided by unk[i, U_WEIGHT].
+
+    ``relaxed`` (after a flip, until the step is back to RELAX_SECONDS) changes what is
+    measured, so the flip's fast transient is stepped over instead of resolved:
+    - A part capacitor's own voltage (an inductor's own current) is held to the absolute
+      tolerance: row i of the mass matrix times the error, over its diagonal, for every
+      slow unknown i. That charge is what carries a flip's error on to the next flips
+      (held to the relative tolerance instead, the period-to-period jitter of the
+      oscillator scenario's flips grew from 4 ns to 20-50 ns rms).
+    - Node voltages are not measured, except audible ones (``unk[i, U_AUDIBLE]``), whose
+      error counts by its share of an audio sample of ``sample_seconds``: by its area,
+      the error times h, which is what a sample's average sees.
+    """
     if order == 2:
         fac = h * (h + h1) / ((2.0 * h + h1) * (h + h1 + h2))
         fac = fac / (1.0 + fac)
@@ -375,9 +393,25 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relax_weight):
         fac = h / (2.0 * h + h1)
     err = 0.0
     for i in range(1, x.shape[0]):
-        scale = _weight(unk, i, weighted, relax_weight) * (
-            unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i])))
-        e = abs(xn[i] - xe[i]) * fac / scale
+        scale = unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i]))
+        if relaxed:
+            if unk[i, U_SLOW] > 0.0:
+                own = 0.0
+                diag = 1.0
+                for q in range(mrow[i], mrow[i + 1]):
+                    j = mcol[q]
+                    own += mval[q] * (xn[j] - xe[j])
+                    if j == i:
+                        diag = mval[q]
+                e = abs(own / diag) * fac / unk[i, U_ATOL]
+                if e > err:
+                    err = e
+            if unk[i, U_AUDIBLE] == 0.0:
+                continue
+            weight = max(1.0, sample_seconds / h)
+        else:
+            weight = unk[i, U_WEIGHT] if weighted else 1.0
+        e = abs(xn[i] - xe[i]) * fac / (weight * scale)
         if e > err:
             err = e
     return err
@@ -458,16 +492,19 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         if k >= cap:
             return k, 1
         h = min(st[S_H], hmax)
-        if h >= remaining:
-            h = remaining
-        elif h > 0.5 * remaining:
-            h = 0.5 * remaining
+        if opt[O_LAND] > 0.0:
+            if h >= remaining:
+                h = remaining
+            elif h > 0.5 * remaining:
+                h = 0.5 * remaining
         mode = int(st[S_MODE])
         nh = int(st[S_NHIST])
         h1 = st[S_H1]
         h2 = st[S_H2]
         order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
-        jv = jump_v if mode == MODE_NORMAL else 0.0
+        # no jump test in recovery (jumps are expected) nor while relaxed after a flip
+        # (the fast unknowns' decay is not followed, so the predictor misses it)
+        jv = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
         outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol,
                                   mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv, cnt,
                                   st, x2)
@@ -520,9 +557,9 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         if nh >= 1:
             # Error control in both modes; in recovery (backward Euler across a flip)
             # the step may grow faster, by ``growth``, as the transient dies out.
-            relax = opt[O_RECOVER_WEIGHT] if st[S_RELAX] > 0.0 else 0.0
             err = _error_norm(order, h, h1, h2, x, xn, xq if order == 2 else xp, unk, rtol,
-                              mode == MODE_NORMAL, relax)
+                              mode == MODE_NORMAL, st[S_RELAX] > 0.0, opt[O_SAMPLE_SECONDS],
+                              mrow, mcol, mval)
             if err > 1.0:
                 cnt[K_REJECT_ERROR] += 1
                 st[S_H] = h * max(MIN_SHRINK, SAFETY / _root(err, order))
@@ -544,8 +581,15 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
         k = _accept(st, t + h, h, x, x1, x2, xn, rec, out_t, out_y, out_o, k,
                     order if mode == MODE_NORMAL else 1)
         cnt[K_STEPS] += 1
-        if st[S_RELAX] > 0.0 and h >= RELAX_SECONDS:
-            st[S_RELAX] = 0.0
+        if st[S_RELAX] > 0.0:
+            # Relaxed stepping ends at the second step of RELAX_SECONDS or more (the
+            # points the next predictor reads are then clear of the flip's transient; at
+            # the first, the fast unknowns' error would reject the next step), or a
+            # while after the flip when a part keeps the steps shorter.
+            if h >= RELAX_SECONDS:
+                st[S_RELAX] += 1.0
+            if st[S_RELAX] > 2.0 or st[S_T] - st[S_FLIP_T] > RELAX_LIMIT_SECONDS:
+                st[S_RELAX] = 0.0
         if mode == MODE_RECOVER:
             hn = h * fac
             # Back to BDF2 once the step is back where it was, or as soon as the error
@@ -563,6 +607,7 @@ def run(st, x, x1, x2, M, pf, nf, tab, df, unk, opt, auto, rec, out_t, out_y, ou
                 cnt[K_EVENTS] += 1
                 st[S_MODE] = MODE_RECOVER
                 st[S_RELAX] = 1.0
+                st[S_FLIP_T] = st[S_T]
                 st[S_HGOAL] = hmax
                 st[S_ERR_OLD] = 0.0
 

@@ -4,7 +4,8 @@ numba needs the sum of the stamps as one compiled function that the stepper call
 So that a new kind of part is one new file in ``blocks/`` and no edit here, this
 module *writes* that function: it generates a small Python module that imports each
 kind's ``stamp``, defines ``evaluate`` calling them in turn, and appends the stepper's
-source (``sim/_stepper_body.py``). The file name carries a hash of everything it was
+source (``sim/_stepper_body.py``) and the compiled readers of a finished trace
+(``sim/_post_body.py``). The file name carries a hash of everything it was
 built from, so numba's on-disk cache (``cache=True``) is reused across runs and never
 stale: edit a block and a new module (and a new compile) follows.
 
@@ -99,8 +100,10 @@ def _source() -> str:
         "    evaluate_parts(x, t, P, N, D, f, G)",
     ]
     lines.append("")
-    body = (Path(__file__).parent / "_stepper_body.py").read_text()
-    return "\n".join(lines) + "\n\n" + body
+    here = Path(__file__).parent
+    body = (here / "_stepper_body.py").read_text()
+    post = (here / "_post_body.py").read_text()  # readers of a finished trace
+    return "\n".join(lines) + "\n\n" + body + "\n\n" + post
 
 
 def _digest(source: str) -> str:

@@ -9,6 +9,7 @@ from __future__ import annotations
 import copy
 import math
 import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -46,9 +47,12 @@ FULL_SCALE_VOLTS = 10.0
 
 #: Threads a render runs beside its own. While the simulation runs, one imports what the
 #: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers;
-#: afterwards the gates' output currents, the WAV path and the plots run in these
-#: threads while this one reads and measures the signals. Two match a 2-core machine:
-#: the compiled readers release the GIL, so they use the second core. Each result is
+#: afterwards the gates' output currents, the WAV path and the spectrum plot run in these
+#: threads while this one reads and measures the signals and draws the waveforms. Two
+#: match a 2-core machine: the compiled readers release the GIL, so they use the second
+#: core (measured on tri-square, 10 s: about 0.5 s of CPU for the gates' currents, 0.3 s
+#: for the WAV path, 0.25 s for this thread's reading and measures, 0.25 s for the two
+#: plots, from the end of the simulation to the report). Each result is
 #: a function of the trace alone and is gathered in a fixed order, so the outputs are
 #: the same to the bit whatever the timing.
 RENDER_THREADS = 2
@@ -182,7 +186,7 @@ class RenderOptions:
 
     def step_options(self) -> StepOptions:
         rtol = QUALITIES[self.quality]
-        return StepOptions(rtol=rtol, atol_volts=rtol / 10.0)
+        return StepOptions(rtol=rtol, atol_volts=rtol / 10.0, sample_seconds=1.0 / self.rate_hz)
 
 
 @dataclass
@@ -250,6 +254,12 @@ def listen_signal(patch, circuit: Circuit, values: dict[str, np.ndarray]) -> np.
     return sig
 
 
+def audible_names(patch) -> list[str]:
+    """The unknowns the WAV is made of: the listened current, else the listened nets."""
+    current = listened_current(patch)
+    return [current[0]] if current else [n for n in patch.listen.nets if n != GROUND]
+
+
 def listen_audio_volts(patch, circuit: Circuit, trace, record: list[str], t_start: float,
                        t_stop: float, rate_hz: int) -> np.ndarray:
     """The listening signal at the audio rate, shape (m,), for the WAV.
@@ -260,8 +270,7 @@ def listen_audio_volts(patch, circuit: Circuit, trace, record: list[str], t_star
     result does not depend on the chunking.
     """
     over = AUDIO_OVERSAMPLE
-    current = listened_current(patch)
-    needed = [current[0]] if current else [n for n in patch.listen.nets if n != GROUND]
+    needed = audible_names(patch)
     columns = [record.index(name) for name in needed]
     count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
     margin = audio.antialias_taps(over).size // over + 2
@@ -295,7 +304,7 @@ GATE_KIND = "inverter"
 #: The ground net: 0 V by definition, never a recorded unknown.
 GROUND = "gnd"
 
-#: Samples evaluated per batch when computing output currents (bounds the memory used:
+#: Samples evaluated per batch by :func:`gate_output_amps` (bounds the memory used:
 #: a few MB for a package of gates; each batch holds the GIL for a few ms only, so the
 #: threads of a render beside it are not held up long).
 OUTPUT_BATCH_SAMPLES = 4096
@@ -355,6 +364,18 @@ def speaker_report(patch, values: dict[str, np.ndarray], warnings: list[str]) ->
     return out
 
 
+def _gate_layout(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The gates alone as a kernel circuit: ``(pf, nf, tab, df)`` on the unknowns gnd,
+    vdd, then (in, out) of each gate. rows: (g, cols) as for :func:`gate_output_amps`."""
+    order = kernel.kind_order()
+    gates, cols = rows.shape
+    tab = np.zeros((len(order), kernel.TAB_SIZE), np.int64)
+    tab[order.index(GATE_KIND)] = (0, cols, 0, 4, gates, 0, 0)
+    pf = np.ascontiguousarray(rows, dtype=np.float64).ravel()
+    nf = np.array([[2 + 2 * j, 3 + 2 * j, 1, 0] for j in range(gates)], np.int64).ravel()
+    return pf, nf, tab, np.zeros(1)
+
+
 def gate_output_amps(rows: np.ndarray, vin_volts: np.ndarray, vout_volts: np.ndarray,
                      vdd_volts: np.ndarray) -> np.ndarray:
     """Current (A) each gate's output delivers into its net, positive when sourcing.
@@ -364,14 +385,9 @@ def gate_output_amps(rows: np.ndarray, vin_volts: np.ndarray, vout_volts: np.nda
     the gates' own equations through the compiled kernel. Returns (m, g).
     """
     k = kernel.load()
-    order = kernel.kind_order()
-    gates, cols = rows.shape
+    pf, nf, tab, df = _gate_layout(rows)
+    gates = rows.shape[0]
     size = 2 + 2 * gates  # gnd, vdd, then (in, out) of each gate
-    tab = np.zeros((len(order), kernel.TAB_SIZE), np.int64)
-    tab[order.index(GATE_KIND)] = (0, cols, 0, 4, gates, 0, 0)
-    pf = np.ascontiguousarray(rows, dtype=np.float64).ravel()
-    nf = np.array([[2 + 2 * j, 3 + 2 * j, 1, 0] for j in range(gates)], np.int64).ravel()
-    df = np.zeros(1)
     count = vin_volts.shape[0]
     out = np.empty((count, gates))
     for start in range(0, count, OUTPUT_BATCH_SAMPLES):
@@ -437,8 +453,13 @@ def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
     needed = [n for n in dict.fromkeys(["vdd", *nets[0], *nets[1]]) if n != GROUND]
     if isinstance(trace, StepTrace):
         first = max(0, int(np.searchsorted(trace.times, t_from - 1.0 / rate_hz)) - 3)
-        columns = {n: trace.values[first:, trace.column(n)] for n in needed}
-        return StepTrace(names=names, times=trace.times[first:], values=amps(columns),
+        # the same equations as amps(), in one compiled call over the recorded points
+        column = {n: (-1 if n == GROUND else trace.column(n)) for n in ["vdd", *nets[0], *nets[1]]}
+        in_cols, out_cols = (np.array([column[n] for n in group], np.int64) for group in nets)
+        values = np.ascontiguousarray(trace.values)
+        currents = kernel.load().gate_currents(values, first, column["vdd"], in_cols, out_cols,
+                                               *_gate_layout(rows))
+        return StepTrace(names=names, times=trace.times[first:], values=currents,
                          order=trace.order[first:], solver=trace.solver)
     rows_in = [trace.rows[trace.column(n)] for n in needed]
 
@@ -461,7 +482,7 @@ def gate_peak_amps(patch, trace, t_start: float, t_stop: float, rate_hz: float
     gate_trace = gate_current_trace(patch, trace, t_start, rate_hz)
     if gate_trace is None:
         return None
-    return np.max(np.abs(gate_trace.uniform(rate_hz, t_start, t_stop)[1]), axis=0)
+    return gate_trace.uniform_peak(rate_hz, t_start, t_stop)
 
 
 def output_report(patch, peak_amps: np.ndarray | None, vdd_volts: np.ndarray,
@@ -676,7 +697,8 @@ def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label
 
     try:
         trace = simulate(circuit, total, record, opts.step_options(), automation=automation,
-                         progress=progress if bar is not None or waiting else None)
+                         progress=progress if bar is not None or waiting else None,
+                         audible=audible_names(patch))
     finally:
         if bar is not None:
             bar.close()
@@ -693,17 +715,23 @@ def report_signal_names(patch) -> list[str]:
     return [name for name in dict.fromkeys(names) if name != GROUND]
 
 
-def warm_up(wav: bool, plots_too: bool) -> None:
+def warm_up(wav: bool, plots_too: bool, patch=None, record: list[str] | None = None) -> None:
     """Import what a render needs after its simulation and load its compiled readers
     from numba's disk cache (run in a thread while the simulation runs).
 
-    wav: also the WAV path's; plots_too: also import matplotlib (renders that write).
+    wav: also the WAV path's; plots_too: also import matplotlib (renders that write);
+    patch and record (the recorded names): also the gates' output currents.
     """
     import scipy.fft  # noqa: F401  (measure's period estimate, audio's drift filter)
 
     tiny = StepTrace(names=["v"], times=np.array([0.0, 0.5, 1.0]), values=np.zeros((3, 1)),
                      order=np.array([1, 1, 2], dtype=np.int64))
     tiny.uniform(4.0, 0.0, 1.0)
+    tiny.uniform_peak(4.0, 0.0, 1.0)
+    if patch is not None and record:
+        at_rest = StepTrace(names=list(record), times=tiny.times,
+                            values=np.zeros((3, len(record))), order=tiny.order)
+        gate_peak_amps(patch, at_rest, 0.0, 1.0, 4.0)
     measure.duty_cycle(np.array([0.0, 1.0, 0.0]), 0.5, 0.0, 2.0)
     if wav:
         import soundfile  # noqa: F401
@@ -747,22 +775,27 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
             warm = []
             circuit, trace = simulate_patch(
                 patch, opts, record, automation=automation,
-                running=lambda: warm.append(pool.submit(warm_up, opts.wav, write)))
-            warm[0].result()
+                running=lambda: warm.append(pool.submit(warm_up, opts.wav, write, patch, record)))
+            # not waited for here: the readers start at once (a reader not loaded yet
+            # loads itself, under numba's lock), and the plots wait for their imports
             return _after_simulation(pool, patch, as_given, automation, circuit, trace,
-                                     record, out_dir, opts, write)
+                                     record, out_dir, opts, write, warm[0])
         except BaseException:
             pool.shutdown(wait=True, cancel_futures=True)
             raise
 
 
 def _after_simulation(pool, patch, as_given, automation, circuit, trace, record, out_dir,
-                      opts: RenderOptions, write: bool) -> Rendered:
-    """The rest of :func:`render`: measures, loads, WAV, plots and report from ``trace``."""
+                      opts: RenderOptions, write: bool, warm_job) -> Rendered:
+    """The rest of :func:`render`: measures, loads, WAV, plots and report from ``trace``.
+
+    warm_job: the future of :func:`warm_up`, still running perhaps (waited for before
+    drawing, and before returning so that its errors are not lost)."""
     fine_rate = opts.rate_hz * OVERSAMPLE
     t_start, t_stop = opts.settle, opts.settle + opts.seconds
-    peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
+    # the WAV path first: the spectrum plot waits for it
     wav_job = pool.submit(wav_path, patch, circuit, trace, record, opts) if opts.wav else None
+    peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
 
     names = report_signal_names(patch)
     times, y = trace.uniform(fine_rate, t_start, t_stop, [record.index(n) for n in names])
@@ -789,15 +822,19 @@ def _after_simulation(pool, patch, as_given, automation, circuit, trace, record,
     title = f"{patch.name}: {_pitch_text(listen_report)} at {listen_label(patch)}"
     if automation:
         title = f"{patch.name}: {_move_text(automation, pitch_track)} at {listen_label(patch)}"
-    plot_job = wav_file_job = None
+    png = spectrum_job = wav_file_job = None
     if write:
         base = Path(out_dir) / patch.name
         Path(out_dir).mkdir(parents=True, exist_ok=True)
         wav_file_job = pool.submit(_write_wav, base.with_suffix(".wav"), wav_job, opts.rate_hz)
-        plot_job = pool.submit(_plots, base, patch, opts, times, values, listen_fine,
-                               listen_report, supply, title, wav_job)
+        warm_job.result()  # matplotlib imported
+        spectrum_job = pool.submit(_spectrum_plot, base, patch, opts, listen_report, wav_job)
+        # this thread would only wait for the gates and the WAV path: it draws meanwhile
+        png = _waveform_plot(base, patch, opts, times, values, listen_fine, listen_report,
+                             supply, title)
 
     outputs = output_report(patch, peaks_job.result(), values["vdd"], warnings)
+    warm_job.result()
     listen_audio, _, info = wav_job.result() if wav_job is not None else (None, None, None)
     if info is not None:
         warnings.extend(audio.level_warnings(info, opts.full_scale_volts))
@@ -827,7 +864,7 @@ def _after_simulation(pool, patch, as_given, automation, circuit, trace, record,
     if not write:
         return result
     wav = wav_file_job.result()
-    png, spectrum = plot_job.result()
+    spectrum = spectrum_job.result()
     js = Path(f"{base}.json")
     write_json(js, report)
     result.paths = [wav, png, spectrum, js]
@@ -840,10 +877,16 @@ def _write_wav(path: Path, wav_job, rate_hz: int) -> Path:
     return path
 
 
-def _plots(base: Path, patch, opts: RenderOptions, times, values, listen_fine, listen_report,
-           supply, title, wav_job) -> tuple[Path, Path]:
-    """Write the waveform and spectrum plots of a render (one after the other: matplotlib's
-    font cache is not safe for two threads drawing at once); returns their paths."""
+#: Held while drawing a plot: matplotlib's font cache is not safe for two threads drawing
+#: at once, and a render draws its waveform in its own thread and its spectrum in a pool
+#: thread.
+_DRAWING = threading.Lock()
+
+
+def _waveform_plot(base: Path, patch, opts: RenderOptions, times, values, listen_fine,
+                   listen_report, supply, title) -> Path:
+    """Write ``<base>.png``, the probes (or the listening signal) over PLOT_PERIODS
+    periods of the pitch; returns its path."""
     from sim import plots
 
     png = Path(f"{base}.png")
@@ -853,14 +896,25 @@ def _plots(base: Path, patch, opts: RenderOptions, times, values, listen_fine, l
     shown = times < times[0] + span
     subtitle = (f"supply {patch.supply.values['volts']:g} V, {supply['mean_ma']:.2f} mA mean; "
                 f"from {opts.settle * 1e3:g} ms after power-on")
-    plots.waveform_plot(png, times[shown] - opts.settle,
-                        {net: values[net][shown] for net in patch.probes} or
-                        {listen_label(patch): listen_fine[shown]}, title, subtitle)
+    with _DRAWING:
+        plots.waveform_plot(png, times[shown] - opts.settle,
+                            {net: values[net][shown] for net in patch.probes} or
+                            {listen_label(patch): listen_fine[shown]}, title, subtitle)
+    return png
+
+
+def _spectrum_plot(base: Path, patch, opts: RenderOptions, listen_report, wav_job) -> Path:
+    """Write ``<base>.spectrum.png`` from the listening signal of ``wav_job`` (a
+    :func:`wav_path` result); returns its path."""
+    from sim import plots
+
     spectrum = Path(f"{base}.spectrum.png")
     listen_audio = wav_job.result()[0]
-    plots.spectrum_plot(spectrum, listen_audio, opts.rate_hz, listen_report["freq_hz"],
-                        f"{patch.name}: spectrum at {listen_label(patch)}, {_pitch_text(listen_report)}")
-    return png, spectrum
+    with _DRAWING:
+        plots.spectrum_plot(spectrum, listen_audio, opts.rate_hz, listen_report["freq_hz"],
+                            f"{patch.name}: spectrum at {listen_label(patch)}, "
+                            f"{_pitch_text(listen_report)}")
+    return spectrum
 
 
 def _pitch_text(m: dict) -> str:

@@ -23,7 +23,27 @@ def box_average(t, y, order, t_first, rate_hz, count):
 
     t: (K,) accepted times, increasing; y: (K, m) values; order: (K,) interpolation
     order on the interval ending at each point. Returns (count, m). The grid must lie
-    inside [t[0], t[-1]].
+    inside [t[0], t[-1]]. See :func:`_box_walk`.
+    """
+    out = np.zeros((count, y.shape[1]))
+    _box_walk(t, y, order, t_first, rate_hz, count, out, False)
+    return out
+
+
+@numba.njit(cache=True, nogil=True)
+def box_peak(t, y, order, t_first, rate_hz, count):
+    """The largest magnitude of each column's averages of :func:`box_average`, shape (m,)
+    (0 when count is 0), without holding the (count, m) averages: the same numbers,
+    one pass, no array of a few tens of MB to write and read back."""
+    out = np.zeros((1, y.shape[1]))
+    _box_walk(t, y, order, t_first, rate_hz, count, out, True)
+    return out[0]
+
+
+@numba.njit(cache=True, nogil=True)
+def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
+    """The walk of :func:`box_average` over the steps: writes each average into
+    out[i, :] (count, m), or with ``peak`` keeps the largest magnitude in out[0, :].
 
     The part of a sample interval that lies within one step is integrated by Simpson's
     rule, exact for the step's interpolant: the quadratic through the step's point and
@@ -33,7 +53,6 @@ def box_average(t, y, order, t_first, rate_hz, count):
     read together. Releases the GIL (a reader thread can run beside the simulation).
     """
     m = y.shape[1]
-    out = np.zeros((count, m))
     d = 1.0 / rate_hz
     acc = np.zeros(m)
     prev = np.zeros(m)
@@ -97,10 +116,13 @@ def box_average(t, y, order, t_first, rate_hz, count):
             kseg += 1
         if j > 0:
             for c in range(m):
-                out[j - 1, c] = (acc[c] - prev[c]) / d
+                average = (acc[c] - prev[c]) / d
+                if not peak:
+                    out[j - 1, c] = average
+                elif abs(average) > out[0, c]:
+                    out[0, c] = abs(average)
         for c in range(m):
             prev[c] = acc[c]
-    return out
 
 
 @dataclass
@@ -136,6 +158,17 @@ class StepTrace:
         out = box_average(self.times, np.ascontiguousarray(values), self.order, first,
                           float(rate_hz), count)
         return grid, out
+
+    def uniform_peak(self, rate_hz: float, t_start: float, t_stop: float) -> np.ndarray:
+        """The largest magnitude of each column on the grid of :meth:`uniform`, shape (m,):
+        ``np.max(np.abs(uniform(...)[1]), axis=0)`` to the bit (finite values), in one
+        compiled pass."""
+        d = 1.0 / rate_hz
+        count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
+        if count <= 0:
+            raise ValueError("uniform_peak needs at least one sample")
+        return box_peak(self.times, np.ascontiguousarray(self.values), self.order,
+                        t_start + 0.5 * d, float(rate_hz), count)
 
 
 @dataclass
@@ -174,3 +207,7 @@ class DenseTrace:
                 acc = acc + 0.5 * w * self.sol(tt)[rows, :].T
             out[a:a + chunk] = acc
         return grid, out
+
+    def uniform_peak(self, rate_hz: float, t_start: float, t_stop: float) -> np.ndarray:
+        """The largest magnitude of each column on the grid of :meth:`uniform`, shape (m,)."""
+        return np.max(np.abs(self.uniform(rate_hz, t_start, t_stop)[1]), axis=0)

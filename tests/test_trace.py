@@ -66,3 +66,15 @@ def test_a_grid_starting_late_in_the_trace_reads_the_same_averages():
     grid, avg = tr.uniform(100.0, 0.9, 0.99)
     a, b = grid - 0.005, grid + 0.005
     assert np.max(np.abs(avg[:, 0] - (b ** 3 - a ** 3) / (3 * (b - a)))) < 1e-12
+
+
+def test_the_peak_of_a_grid_is_the_largest_magnitude_of_its_averages_to_the_bit():
+    # source: the definition StepTrace.uniform_peak states (the largest |average| of
+    # StepTrace.uniform per column), common practice for a fused reduction
+    rng = np.random.default_rng(3)
+    t = np.sort(np.concatenate([[0.0, 1.0], rng.uniform(0, 1, 300)]))
+    values = rng.normal(size=(t.size, 3))
+    order = rng.integers(1, 3, t.size)
+    tr = StepTrace(names=["a", "b", "c"], times=t, values=values, order=order)
+    _, averages = tr.uniform(400.0, 0.05, 0.95)
+    assert np.array_equal(tr.uniform_peak(400.0, 0.05, 0.95), np.max(np.abs(averages), axis=0))
