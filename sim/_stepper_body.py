@@ -135,6 +135,9 @@ RELAX_SECONDS = 10e-6
 #: ... and at the latest this long after the flip (when a part asks for steps shorter
 #: than RELAX_SECONDS, e.g. a high test tone).
 RELAX_LIMIT_SECONDS = 50e-6
+#: While relaxed, Newton's method starts the fast unknowns from their last value when the
+#: step is more than this many times the last one (else from the extrapolation).
+HOLD_GROWTH = 1.5
 #: Smallest error norm remembered for the predictive controller (keeps the trend
 #: factor finite after an exact step).
 ERR_FLOOR = 1e-4
@@ -354,11 +357,14 @@ def _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol, mval, pf, P,
         _extrapolate2(h, h1, st[S_H2], x, x1, x2, xq)
         if opt[O_QUAD_GUESS] > 0.0:
             guess = xq
-    hold = st[S_RELAX] > 0.0
+    # After a flip the fast unknowns settle within a few of their time constants:
+    # extrapolating their decay over a much longer step overshoots (past a rail, where an
+    # input clamp makes Newton's method crawl); their last value is then the better start.
+    # Over a step about as long as the last one the extrapolation is better: it follows
+    # fast nets that track a slow transient (a bridged speaker's outputs as its current
+    # reverses), where the last value would cost every step a second iteration.
+    hold = st[S_RELAX] > 0.0 and (order == 1 or h > HOLD_GROWTH * h1)
     for i in range(x.shape[0]):
-        # After a flip the fast unknowns settle within a few of their time constants:
-        # extrapolating their decay over a longer step overshoots (past a rail, where an
-        # input clamp makes Newton's method crawl); their last value is the better start.
         xn[i] = x[i] if (hold and unk[i, U_SLOW] == 0.0) else guess[i]
     return newton(xn, t + h, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xp,
                   jump_v, cnt, st)
@@ -377,11 +383,11 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relaxed, sampl
 
     ``relaxed`` (after a flip, until the step is back to RELAX_SECONDS) changes what is
     measured, so the flip's fast transient is stepped over instead of resolved:
-    - A part capacitor's own voltage (an inductor's own current) is held to the absolute
-      tolerance: row i of the mass matrix times the error, over its diagonal, for every
-      slow unknown i. That charge is what carries a flip's error on to the next flips
-      (held to the relative tolerance instead, the period-to-period jitter of the
-      oscillator scenario's flips grew from 4 ns to 20-50 ns rms).
+    - A part capacitor's own voltage is held to the absolute tolerance: row i of the mass
+      matrix times the error, over its diagonal, for every slow voltage unknown i. That
+      charge is what carries a flip's error on to the next flips (held to the relative
+      tolerance of its voltage instead, the oscillator scenario's flips scatter by 25 ns
+      rms). Branch currents (inductors) are measured as in normal steps.
     - Node voltages are not measured, except audible ones (``unk[i, U_AUDIBLE]``), whose
       error counts by its share of an audio sample of ``sample_seconds``: by its area,
       the error times h, which is what a sample's average sees.
@@ -394,7 +400,11 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relaxed, sampl
     err = 0.0
     for i in range(1, x.shape[0]):
         scale = unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i]))
-        if relaxed:
+        if relaxed and unk[i, U_VOLT] == 0.0 and unk[i, U_SLOW] > 0.0:
+            # an inductor's current (a speaker coil's): measured as in normal steps (its
+            # transient after a flip is slow and audible)
+            weight = unk[i, U_WEIGHT] if weighted else 1.0
+        elif relaxed:
             if unk[i, U_SLOW] > 0.0:
                 own = 0.0
                 diag = 1.0
