@@ -27,6 +27,12 @@ _EXP_LIMIT = math.exp(JUNCTION_LINEAR_ABOVE)
 #: Beyond this argument softplus(z) = z and sigmoid(z) = 1 to double precision.
 _SOFTPLUS_SATURATED = 36.0
 
+#: Beyond this argument e = exp(-|z|) < 1.6e-8, and the series log1p(e) = e - e^2/2,
+#: 1/(1 + e) = 1 - e + e^2 are exact to double precision (the next terms are e^3, below
+#: 1e-16 of the result): they replace a logarithm and a division (about 10 % of the
+#: channel's time, measured on random operating points).
+_SOFTPLUS_TAIL = 18.0
+
 
 @numba.njit
 def junction(v, saturation_amps, n_vt):
@@ -60,8 +66,12 @@ def softplus_sigmoid(z):
         return e, e
     if z > 0.0:
         e = math.exp(-z)
+        if z > _SOFTPLUS_TAIL:
+            return z + e * (1.0 - 0.5 * e), 1.0 - e * (1.0 - e)
         return z + math.log1p(e), 1.0 / (1.0 + e)
     e = math.exp(z)
+    if z < -_SOFTPLUS_TAIL:
+        return e * (1.0 - 0.5 * e), e * (1.0 - e)
     return math.log1p(e), e / (1.0 + e)
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 import copy
 import math
 import os
+import queue
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -22,7 +23,7 @@ from sim.compile import Circuit, compile_patch
 from sim.errors import PatchError, UsageError
 from sim.fileio import write_json
 from sim.simulate import Automation, StepOptions, simulate, simulate_reference
-from sim.trace import DenseTrace, StepTrace
+from sim.trace import DenseTrace, GridReader, StepTrace
 from sim.units import format_quantity
 
 #: Samples per audio sample in the simulated signal before the anti-alias filter and
@@ -46,16 +47,30 @@ AUDIO_CHUNK_SECONDS = 1.0
 FULL_SCALE_VOLTS = 10.0
 
 #: Threads a render runs beside its own. While the simulation runs, one imports what the
-#: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers;
-#: afterwards the gates' output currents, the WAV path and the spectrum plot run in these
-#: threads while this one reads and measures the signals and draws the waveforms. Two
-#: match a 2-core machine: the compiled readers release the GIL, so they use the second
-#: core (measured on tri-square, 10 s: about 0.5 s of CPU for the gates' currents, 0.3 s
-#: for the WAV path, 0.25 s for this thread's reading and measures, 0.25 s for the two
-#: plots, from the end of the simulation to the report). Each result is
-#: a function of the trace alone and is gathered in a fixed order, so the outputs are
-#: the same to the bit whatever the timing.
+#: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers,
+#: then reads the finished part of the trace (STREAM_DURING_SIMULATION: the report's
+#: signals, the gates' output currents, the WAV path). After the simulation the last of
+#: that reading, the WAV samples and the spectrum plot run in these threads while this
+#: one measures the signals and draws the waveforms. Two match a 2-core machine: the
+#: compiled readers release the GIL, so they use the second core (measured on
+#: tri-square, 10 s: about 0.8 s from the end of the simulation to the report, of which
+#: the two plots take about 0.45 s). Each result is a function of the trace alone and is
+#: gathered in a fixed order, so the outputs are the same to the bit whatever the
+#: timing.
 RENDER_THREADS = 2
+
+#: Read the trace while it is computed (:class:`_TraceStream`): the gates' output
+#: currents and their peaks, the report's signals and the WAV path's reads and
+#: decimation run in a pool thread beside the simulation, on its finished part. Off,
+#: they run after it; the outputs are the same to the bit either way.
+STREAM_DURING_SIMULATION = True
+
+#: The simulation hands its finished points to that thread in batches of at least this
+#: many simulated seconds (five of its 50 ms chunks): few, large compiled calls that
+#: release the GIL, rather than a Python round trip per chunk competing with the
+#: simulation's own thread for the GIL; the last batch, read after the simulation, is
+#: a few tens of ms of work.
+STREAM_BATCH_SECONDS = 0.25
 
 #: Simulated seconds above which a progress bar is shown.
 PROGRESS_ABOVE_SECONDS = 3.0
@@ -272,20 +287,33 @@ def listen_audio_volts(patch, circuit: Circuit, trace, record: list[str], t_star
     over = AUDIO_OVERSAMPLE
     needed = audible_names(patch)
     columns = [record.index(name) for name in needed]
-    count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
-    margin = audio.antialias_taps(over).size // over + 2
-    chunk = max(1, int(AUDIO_CHUNK_SECONDS * rate_hz))
-    out = np.empty(count)
-    for a in range(0, count, chunk):
-        b = min(count, a + chunk)
-        lo, hi = max(0, a - margin), min(count, b + margin)
+    chunks = _audio_chunks(t_start, t_stop, rate_hz)
+    out = np.empty(chunks[-1][1] if chunks else 0)
+    for a, b, lo, hi in chunks:
         _, y = trace.uniform(rate_hz * over, t_start + lo / rate_hz, t_start + hi / rate_hz,
                              columns)
-        values = {name: y[:, j] for j, name in enumerate(needed)}
-        values[GROUND] = np.zeros(y.shape[0])
-        part = audio.decimate(listen_signal(patch, circuit, values), over)
-        out[a:b] = part[a - lo:a - lo + (b - a)]
+        out[a:b] = _audio_chunk_volts(patch, needed, y, a, b, lo)
     return out
+
+
+def _audio_chunks(t_start: float, t_stop: float, rate_hz: int) -> list[tuple[int, int, int, int]]:
+    """The chunks of :func:`listen_audio_volts`: ``(a, b, lo, hi)``, audio samples a to b
+    read from samples lo to hi (a margin of the anti-alias filter's length each side)."""
+    count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
+    margin = audio.antialias_taps(AUDIO_OVERSAMPLE).size // AUDIO_OVERSAMPLE + 2
+    chunk = max(1, int(AUDIO_CHUNK_SECONDS * rate_hz))
+    return [(a, min(count, a + chunk), max(0, a - margin), min(count, a + chunk + margin))
+            for a in range(0, count, chunk)]
+
+
+def _audio_chunk_volts(patch, needed: list[str], y: np.ndarray, a: int, b: int, lo: int
+                       ) -> np.ndarray:
+    """Audio samples a to b of the listening signal from ``y`` (n, len(needed)), the
+    listened unknowns read at AUDIO_OVERSAMPLE x the audio rate from audio sample lo."""
+    values = {name: y[:, j] for j, name in enumerate(needed)}
+    values[GROUND] = np.zeros(y.shape[0])
+    part = audio.decimate(listen_signal(patch, None, values), AUDIO_OVERSAMPLE)
+    return part[a - lo:a - lo + (b - a)]
 
 
 def listen_label(patch) -> str:
@@ -440,9 +468,7 @@ def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
     gates = _gates(patch)
     if not gates:
         return None
-    kind = blocks.REGISTRY[GATE_KIND]
-    rows = np.array([kind.row(part.values) + [0.0, 0.0] for _, part in gates])
-    nets = ([part.nets["in"][0] for _, part in gates], [part.nets["out"][0] for _, part in gates])
+    rows, nets = _gate_rows_and_nets(gates)
 
     def amps(columns):  # columns: name -> (m,) volts
         zero = np.zeros_like(columns["vdd"])
@@ -454,11 +480,7 @@ def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
     if isinstance(trace, StepTrace):
         first = max(0, int(np.searchsorted(trace.times, t_from - 1.0 / rate_hz)) - 3)
         # the same equations as amps(), in one compiled call over the recorded points
-        column = {n: (-1 if n == GROUND else trace.column(n)) for n in ["vdd", *nets[0], *nets[1]]}
-        in_cols, out_cols = (np.array([column[n] for n in group], np.int64) for group in nets)
-        values = np.ascontiguousarray(trace.values)
-        currents = kernel.load().gate_currents(values, first, column["vdd"], in_cols, out_cols,
-                                               *_gate_layout(rows))
+        currents = _gate_currents(trace.names, rows, nets, trace.values, first)
         return StepTrace(names=names, times=trace.times[first:], values=currents,
                          order=trace.order[first:], solver=trace.solver)
     rows_in = [trace.rows[trace.column(n)] for n in needed]
@@ -469,6 +491,26 @@ def gate_current_trace(patch, trace, t_from: float, rate_hz: float):
 
     return DenseTrace(names=names, sol=sol, rows=list(range(len(names))), t_end=trace.t_end,
                       solver=trace.solver)
+
+
+def _gate_rows_and_nets(gates) -> tuple[np.ndarray, tuple[list[str], list[str]]]:
+    """The gates' kernel parameter rows (g, cols) and their (input, output) net names."""
+    kind = blocks.REGISTRY[GATE_KIND]
+    rows = np.array([kind.row(part.values) + [0.0, 0.0] for _, part in gates])
+    return rows, ([part.nets["in"][0] for _, part in gates],
+                  [part.nets["out"][0] for _, part in gates])
+
+
+def _gate_currents(names: list[str], rows: np.ndarray, nets, values: np.ndarray, first: int
+                   ) -> np.ndarray:
+    """Each gate's output current (A, sourcing positive) at the recorded points
+    ``values[first:]`` ((K, len(names)) volts of the recorded ``names``), (K - first, g):
+    the kernel's ``gate_currents`` in one call (it releases the GIL)."""
+    column = {n: (-1 if n == GROUND else names.index(n)) for n in ["vdd", *nets[0], *nets[1]]}
+    in_cols, out_cols = (np.array([column[n] for n in group], np.int64) for group in nets)
+    return kernel.load().gate_currents(np.ascontiguousarray(values), first, column["vdd"],
+                                       in_cols, out_cols,
+                                       np.ascontiguousarray(rows, dtype=np.float64))
 
 
 def gate_peak_amps(patch, trace, t_start: float, t_stop: float, rate_hz: float
@@ -666,12 +708,13 @@ def move_pitch_track(volts, rate_hz: float) -> dict:
 
 
 def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label: str = "",
-                   automation: tuple[Automation, ...] = (), running=None):
+                   automation: tuple[Automation, ...] = (), running=None, on_chunk=None):
     """Compile and run ``patch`` for settle + seconds; returns (circuit, trace).
 
     automation: parameters moving in time (see :func:`prepare_moves`). running: optional
     callable, called once when the compiled stepper has run its first chunk (its code is
     loaded and it now runs without the GIL), or after the reference solver has finished.
+    on_chunk: the compiled stepper's per-chunk hook (see :func:`sim.simulate.simulate`).
     """
     circuit = compile_patch(patch)
     total = opts.settle + opts.seconds
@@ -698,7 +741,7 @@ def simulate_patch(patch, opts: RenderOptions, record: list[str], progress_label
     try:
         trace = simulate(circuit, total, record, opts.step_options(), automation=automation,
                          progress=progress if bar is not None or waiting else None,
-                         audible=audible_names(patch))
+                         audible=audible_names(patch), on_chunk=on_chunk)
     finally:
         if bar is not None:
             bar.close()
@@ -713,6 +756,170 @@ def report_signal_names(patch) -> list[str]:
     The gates' nets are recorded too, but only read through their output currents."""
     names = [*_listened_names(patch), *_speaker_names(patch)]
     return [name for name in dict.fromkeys(names) if name != GROUND]
+
+
+#: Markers put on a :class:`_TraceStream`'s queue after the last batch.
+_END, _ABORT = "end", "abort"
+
+#: Points kept from one batch to the next: the steps before a reader's start (a step's
+#: interpolant reaches two points back; :func:`gate_current_trace` starts three back).
+_TAIL_POINTS = 3
+
+
+class _TraceStream:
+    """The readers of a render run on the trace while the simulation computes it.
+
+    The simulation's thread calls :meth:`on_chunk` (it only queues the points); a pool
+    thread runs :meth:`run`, which feeds them to :class:`sim.trace.GridReader` walks:
+    the report's signals, the gates' output currents and their peak, and each chunk of
+    the WAV path (:func:`_audio_chunks`), decimated as soon as its reads are done. Each
+    gives the same numbers to the bit as the same reader run on the finished trace.
+    """
+
+    def __init__(self, patch, record: list[str], opts: "RenderOptions"):
+        self.patch = patch
+        fine_rate = opts.rate_hz * OVERSAMPLE
+        self.t_start, t_stop = opts.settle, opts.settle + opts.seconds
+        self.fine_rate = fine_rate
+        self.record = record
+        self.queue: queue.SimpleQueue = queue.SimpleQueue()
+        self.pending: list = []
+        self.job = None  # the future of run(), once submitted
+        names = report_signal_names(patch)
+        self.signals = GridReader(fine_rate, self.t_start, t_stop, [record.index(n) for n in names])
+        gates = _gates(patch)
+        self.gates = _gate_rows_and_nets(gates) if gates else None
+        self.gate_first = None  # trace index where the gates' current trace starts
+        self.gate_peak = GridReader(fine_rate, self.t_start, t_stop, peak=True)
+        self.rate_hz = opts.rate_hz
+        self.needed = audible_names(patch) if opts.wav else []
+        self.audio_chunks = _audio_chunks(self.t_start, t_stop, opts.rate_hz) if opts.wav else []
+        self.audio_open: dict[int, GridReader] = {}
+        self.audio_next = 0  # the next chunk to open
+        self.audio_volts = np.empty(self.audio_chunks[-1][1] if self.audio_chunks else 0)
+
+    # -- the simulation's thread
+
+    def on_chunk(self, times, values, orders) -> None:
+        """simulate()'s hook: queue the chunk; hand a batch over every STREAM_BATCH_SECONDS."""
+        self.pending.append((times, values, orders))
+        if times[-1] - self.pending[0][0][0] >= STREAM_BATCH_SECONDS:
+            self._hand_over()
+            if self.job is not None and self.job.done():
+                self.job.result()  # the reader failed: stop the simulation with its error
+
+    def _hand_over(self) -> None:
+        if self.pending:
+            self.queue.put(tuple(np.concatenate(p) for p in zip(*self.pending)))
+            self.pending = []
+
+    def end(self) -> None:
+        """After the simulation's last chunk."""
+        self._hand_over()
+        self.queue.put(_END)
+
+    def abort(self) -> None:
+        """The simulation failed: run() returns without finishing."""
+        self.queue.put(_ABORT)
+
+    # -- the pool's thread
+
+    def run(self, warm_job):
+        """Read batches until the end; returns (times, (count, m) signals, gate peaks or
+        None, audio volts or None). warm_job: the imports' future, waited for first (so
+        this thread does not compete with them and the simulation for two cores)."""
+        warm_job.result()
+        index = 0  # trace index of the next point
+        tail = None  # the last _TAIL_POINTS points: (index, times, values, orders)
+        while True:
+            items = [self.queue.get()]
+            while items[-1] not in (_END, _ABORT):  # whatever else is waiting: one batch
+                try:
+                    items.append(self.queue.get_nowait())
+                except queue.Empty:
+                    break
+            if items[-1] is _ABORT:
+                return None
+            batches = [item for item in items if item is not _END]
+            if batches:
+                times, values, orders = (np.concatenate(p) for p in zip(*batches))
+                tail = self._feed(index, times, values, orders, tail)
+                index += times.size
+            if items[-1] is _END:
+                return self._finish(tail)
+
+    def _window(self, tail, index, times, values, orders):
+        """The tail before a batch and the batch, with the trace index of its first point."""
+        if tail is None:
+            return index, times, values, orders
+        return (tail[0], *(np.concatenate((old, new)) for old, new in
+                           zip(tail[1:], (times, values, orders))))
+
+    def _feed(self, index, times, values, orders, tail):
+        self.signals.feed(index, times, values, orders)
+        start, *window = self._window(tail, index, times, values, orders)
+        if self.gates is not None:
+            self._feed_gates(index, (times, values, orders), start, window, final=False)
+        self._feed_audio(index, (times, values, orders), start, window)
+        keep = max(0, window[0].size - _TAIL_POINTS)
+        return (start + keep, *(a[keep:] for a in window))
+
+    def _feed_gates(self, index, batch, start, window, final: bool) -> None:
+        rows, nets = self.gates
+        if self.gate_first is None:
+            t_from = self.t_start - 1.0 / self.fine_rate
+            found = int(np.searchsorted(window[0], t_from))
+            if found == window[0].size and not final:
+                return
+            # as gate_current_trace: three points before the first at or after t_from
+            self.gate_first = max(0, start + found - 3)
+            cut = self.gate_first - start
+            at, batch = self.gate_first, tuple(a[cut:] for a in window)
+        else:
+            at = index
+        currents = _gate_currents(self.record, rows, nets, batch[1], 0)
+        self.gate_peak.feed(at - self.gate_first, batch[0], currents, batch[2])
+
+    def _feed_audio(self, index, batch, start, window) -> None:
+        for c, reader in self.audio_open.items():
+            reader.feed(index, *batch)
+        d = 1.0 / (self.rate_hz * AUDIO_OVERSAMPLE)
+        while self.audio_next < len(self.audio_chunks):
+            _, _, lo, hi = self.audio_chunks[self.audio_next]
+            reader = GridReader(self.rate_hz * AUDIO_OVERSAMPLE, self.t_start + lo / self.rate_hz,
+                                self.t_start + hi / self.rate_hz,
+                                [self.record.index(n) for n in self.needed])
+            if window[0][-1] < reader.t_first - 0.5 * d:
+                break  # the trace has not reached it yet
+            reader.feed(start, *window)
+            self.audio_open[self.audio_next] = reader
+            self.audio_next += 1
+        for c in [c for c, reader in self.audio_open.items() if reader.done]:
+            self._decimate(c, self.audio_open.pop(c).finish()[1])
+
+    def _decimate(self, c: int, y: np.ndarray) -> None:
+        a, b, lo, _ = self.audio_chunks[c]
+        self.audio_volts[a:b] = _audio_chunk_volts(self.patch, self.needed, y, a, b, lo)
+
+    def _finish(self, tail):
+        if tail is None:
+            raise ValueError("the simulation handed over no points")
+        empty = tuple(a[:0] for a in tail[1:])
+        if self.gates is not None and self.gate_first is None:
+            self._feed_gates(tail[0] + tail[1].size, empty, tail[0], tail[1:], final=True)
+        while self.audio_next < len(self.audio_chunks):  # a trace ending before a chunk
+            _, _, lo, hi = self.audio_chunks[self.audio_next]
+            reader = GridReader(self.rate_hz * AUDIO_OVERSAMPLE, self.t_start + lo / self.rate_hz,
+                                self.t_start + hi / self.rate_hz,
+                                [self.record.index(n) for n in self.needed])
+            reader.feed(tail[0], *tail[1:])
+            self.audio_open[self.audio_next] = reader
+            self.audio_next += 1
+        for c in sorted(self.audio_open):
+            self._decimate(c, self.audio_open.pop(c).finish()[1])
+        times, signals = self.signals.finish()
+        peaks = self.gate_peak.finish() if self.gates is not None else None
+        return times, signals, peaks, (self.audio_volts if self.needed else None)
 
 
 def warm_up(wav: bool, plots_too: bool, patch=None, record: list[str] | None = None) -> None:
@@ -752,6 +959,14 @@ def wav_path(patch, circuit: Circuit, trace, record: list[str], opts: RenderOpti
     return volts, samples, info
 
 
+def _streamed_wav_path(stream_job, opts: RenderOptions) -> tuple[np.ndarray, np.ndarray, dict]:
+    """:func:`wav_path` from the audio volts read during the simulation (``stream_job``)."""
+    volts = stream_job.result()[3]
+    samples, info = audio.to_wav_samples(volts, full_scale_volts=opts.full_scale_volts,
+                                         normalize=opts.normalize, rate_hz=opts.rate_hz)
+    return volts, samples, info
+
+
 def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | None = None,
            write: bool = True) -> Rendered:
     """Simulate ``patch`` and write ``<patch>.wav``, ``.png``, ``.spectrum.png`` and ``.json``.
@@ -768,37 +983,56 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
 
     # (a wrong listen fails here, before the simulation)
     record = list(dict.fromkeys([*_listened_names(patch), *load_record_names(patch)]))
+    stream = (_TraceStream(patch, record, opts)
+              if STREAM_DURING_SIMULATION and opts.solver == "compiled" else None)
     with ThreadPoolExecutor(RENDER_THREADS, thread_name_prefix="halfrail-render") as pool:
-        try:
+        warm = []
+
+        def running():
             # the imports start once the stepper runs without the GIL (loading its code
             # from the disk cache needs the GIL: importing beside it would slow it down)
-            warm = []
-            circuit, trace = simulate_patch(
-                patch, opts, record, automation=automation,
-                running=lambda: warm.append(pool.submit(warm_up, opts.wav, write, patch, record)))
+            warm.append(pool.submit(warm_up, opts.wav, write, patch, record))
+            if stream is not None:
+                stream.job = pool.submit(stream.run, warm[0])
+
+        try:
+            circuit, trace = simulate_patch(patch, opts, record, automation=automation,
+                                            running=running,
+                                            on_chunk=stream.on_chunk if stream else None)
+            if stream is not None:
+                stream.end()
             # not waited for here: the readers start at once (a reader not loaded yet
             # loads itself, under numba's lock), and the plots wait for their imports
             return _after_simulation(pool, patch, as_given, automation, circuit, trace,
-                                     record, out_dir, opts, write, warm[0])
+                                     record, out_dir, opts, write, warm[0],
+                                     stream.job if stream else None)
         except BaseException:
+            if stream is not None:
+                stream.abort()
             pool.shutdown(wait=True, cancel_futures=True)
             raise
 
 
 def _after_simulation(pool, patch, as_given, automation, circuit, trace, record, out_dir,
-                      opts: RenderOptions, write: bool, warm_job) -> Rendered:
+                      opts: RenderOptions, write: bool, warm_job, stream_job=None) -> Rendered:
     """The rest of :func:`render`: measures, loads, WAV, plots and report from ``trace``.
 
     warm_job: the future of :func:`warm_up`, still running perhaps (waited for before
-    drawing, and before returning so that its errors are not lost)."""
+    drawing, and before returning so that its errors are not lost). stream_job: the
+    future of :meth:`_TraceStream.run` when the trace was read during the simulation
+    (its signals, gate peaks and audio volts are then taken from it)."""
     fine_rate = opts.rate_hz * OVERSAMPLE
     t_start, t_stop = opts.settle, opts.settle + opts.seconds
-    # the WAV path first: the spectrum plot waits for it
-    wav_job = pool.submit(wav_path, patch, circuit, trace, record, opts) if opts.wav else None
-    peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
-
     names = report_signal_names(patch)
-    times, y = trace.uniform(fine_rate, t_start, t_stop, [record.index(n) for n in names])
+    if stream_job is not None:
+        wav_job = pool.submit(_streamed_wav_path, stream_job, opts) if opts.wav else None
+        peaks_job = pool.submit(lambda: stream_job.result()[2])
+        times, y = stream_job.result()[:2]
+    else:
+        # the WAV path first: the spectrum plot waits for it
+        wav_job = pool.submit(wav_path, patch, circuit, trace, record, opts) if opts.wav else None
+        peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
+        times, y = trace.uniform(fine_rate, t_start, t_stop, [record.index(n) for n in names])
     values = {name: y[:, j] for j, name in enumerate(names)}
     values[GROUND] = np.zeros_like(times)
     warnings = supply_warnings(float(patch.supply.values["volts"]))

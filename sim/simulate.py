@@ -117,7 +117,7 @@ def _unknown_table(circuit: Circuit, opts: StepOptions, audible=()) -> np.ndarra
 
 
 def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOptions = StepOptions(),
-             automation=(), progress=None, audible=()) -> StepTrace:
+             automation=(), progress=None, audible=(), on_chunk=None) -> StepTrace:
     """Integrate from power-on to ``seconds`` with the compiled stepper.
 
     record: names of unknowns to keep (nets, ``D1.junction``...). progress: optional
@@ -125,6 +125,12 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
     are heard (the listened nets or current): their error stays watched after a flip
     (see StepOptions.flip_volts). Raises SolverError when Newton's
     method fails at the smallest step, naming the time and the nets involved.
+
+    on_chunk: optional callable(times, values, orders) called after each chunk (before
+    ``progress``) with its accepted points, (k,), (k, len(record)), (k,), the first call
+    starting with the power-on point: one after the other they are the returned trace's
+    arrays, so a reader can start on the finished part of the trace while the rest is
+    computed. Read-only; the stepping is the same with or without it.
     """
     k = kernel.load()
     n = circuit.size
@@ -169,6 +175,7 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
     out_y = np.zeros((POINTS_PER_CHUNK, len(rec)))
     out_o = np.zeros(POINTS_PER_CHUNK, dtype=np.int64)
     started = time.perf_counter()
+    sent = 0  # pieces of the lists above already handed to on_chunk
     t_chunk = 0.0
     while st[k.S_T] < seconds * (1 - 1e-14):
         t_chunk = min(seconds, st[k.S_T] + opts.chunk_seconds)
@@ -195,6 +202,10 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
                     seconds=float(st[k.S_T]), nets=(worst,))
             if status == 0:
                 break
+        if on_chunk is not None:
+            pieces = (times[sent:], values[sent:], orders[sent:])
+            sent = len(times)
+            on_chunk(*(p[0] if len(p) == 1 else np.concatenate(p) for p in pieces))
         if progress is not None:
             progress(float(st[k.S_T]))
     counters = dict(zip(COUNTER_NAMES, (int(c) for c in cnt)))

@@ -26,7 +26,8 @@ def box_average(t, y, order, t_first, rate_hz, count):
     inside [t[0], t[-1]]. See :func:`_box_walk`.
     """
     out = np.zeros((count, y.shape[1]))
-    _box_walk(t, y, order, t_first, rate_hz, count, out, False)
+    state = _walk_state(t, 0, t_first, rate_hz, y.shape[1])
+    _box_walk(t, y, order, 0, t_first, rate_hz, 0, count + 1, out, 0, False, state)
     return out
 
 
@@ -36,14 +37,42 @@ def box_peak(t, y, order, t_first, rate_hz, count):
     (0 when count is 0), without holding the (count, m) averages: the same numbers,
     one pass, no array of a few tens of MB to write and read back."""
     out = np.zeros((1, y.shape[1]))
-    _box_walk(t, y, order, t_first, rate_hz, count, out, True)
+    state = _walk_state(t, 0, t_first, rate_hz, y.shape[1])
+    _box_walk(t, y, order, 0, t_first, rate_hz, 0, count + 1, out, 0, True, state)
     return out[0]
 
 
+#: Slots of the state of :func:`_box_walk` (a float array, then acc and prev, m each):
+#: where the walk stands, so a walk over a trace still being computed can stop at the
+#: end of what is known and go on from there with the same arithmetic.
+W_CURSOR, W_KSEG, W_SEG, W_T0, W_T1, W_QUAD, W_DEN0, W_DEN1, W_DEN2, W_B0, W_B1, W_B2 = range(12)
+W_SIZE = 12
+
+
 @numba.njit(cache=True, nogil=True)
-def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
-    """The walk of :func:`box_average` over the steps: writes each average into
-    out[i, :] (count, m), or with ``peak`` keeps the largest magnitude in out[0, :].
+def _walk_state(t, base, t_first, rate_hz, m):
+    """The state of :func:`_box_walk` before its first sample: t (k,) holds the trace's
+    points from index ``base`` on, including the last one before the grid's start (or
+    the trace's first point) and one at or after it."""
+    state = np.zeros(W_SIZE + 2 * m)
+    d = 1.0 / rate_hz
+    cursor = t_first - 0.5 * d
+    last = t.shape[0] - 1
+    # the first step ending at or after the grid's start
+    state[W_CURSOR] = cursor
+    state[W_KSEG] = base + max(1, min(last, np.searchsorted(t, cursor)))
+    state[W_SEG] = -1.0  # the step the constants belong to: none yet
+    return state
+
+
+@numba.njit(cache=True, nogil=True)
+def _box_walk(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak, state):
+    """The walk of :func:`box_average` over the steps, edges j_from to j_to - 1 (edge j
+    closes sample j - 1, from 0 to count): writes each average into
+    out[j - 1 - out_row0, :], or with ``peak`` keeps the largest magnitude in out[0, :].
+    t, y, order hold the trace's points from index ``base`` on (from the step before
+    the walk's, see ``state``); ``state`` (:func:`_walk_state`) is read and left where
+    the walk stops, so a walk cut into parts gives the same numbers to the bit.
 
     The part of a sample interval that lies within one step is integrated by Simpson's
     rule, exact for the step's interpolant: the quadratic through the step's point and
@@ -54,29 +83,28 @@ def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
     """
     m = y.shape[1]
     d = 1.0 / rate_hz
-    acc = np.zeros(m)
-    prev = np.zeros(m)
-    cursor = t_first - 0.5 * d
-    last = t.shape[0] - 1
-    # the first step ending at or after the grid's start
-    kseg = max(1, min(last, np.searchsorted(t, cursor)))
-    seg = -1  # the step the constants below belong to
-    t0 = t1 = 0.0
-    quad = False
-    den0 = den1 = den2 = 0.0
-    b0 = b1 = b2 = 0.0
-    for j in range(count + 1):
+    acc = state[W_SIZE:W_SIZE + m]
+    prev = state[W_SIZE + m:W_SIZE + 2 * m]
+    cursor = state[W_CURSOR]
+    last = base + t.shape[0] - 1
+    kseg = int(state[W_KSEG])
+    seg = int(state[W_SEG])
+    t0, t1 = state[W_T0], state[W_T1]
+    quad = state[W_QUAD] != 0.0
+    den0, den1, den2 = state[W_DEN0], state[W_DEN1], state[W_DEN2]
+    b0, b1, b2 = state[W_B0], state[W_B1], state[W_B2]
+    for j in range(j_from, j_to):
         edge = t_first + (j - 0.5) * d
         while True:
-            t2 = t[kseg]
+            t2 = t[kseg - base]
             upper = min(edge, t2)
             if upper > cursor:
                 fresh = seg != kseg
                 if fresh:
                     seg = kseg
-                    t1 = t[kseg - 1]
-                    quad = order[kseg] == 2 and kseg >= 2
-                    t0 = t[kseg - 2] if kseg >= 2 else t1
+                    t1 = t[kseg - 1 - base]
+                    quad = order[kseg - base] == 2 and kseg >= 2
+                    t0 = t[kseg - 2 - base] if kseg >= 2 else t1
                     den0 = (t0 - t1) * (t0 - t2)
                     den1 = (t1 - t0) * (t1 - t2)
                     den2 = (t2 - t0) * (t2 - t1)
@@ -99,7 +127,8 @@ def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
                     b1 = (tb - t0) * (tb - t2) / den1
                     b2 = (tb - t0) * (tb - t1) / den2
                     for c in range(m):
-                        y0, y1, y2 = y[kseg - 2, c], y[kseg - 1, c], y[kseg, c]
+                        k0 = kseg - 2 - base
+                        y0, y1, y2 = y[k0, c], y[k0 + 1, c], y[k0 + 2, c]
                         s = 0.0
                         s += 1.0 * (a0 * y0 + a1 * y1 + a2 * y2)
                         s += 4.0 * (m0 * y0 + m1 * y1 + m2 * y2)
@@ -107,7 +136,7 @@ def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
                         acc[c] += s * (tb - ta) / 6.0
                 else:
                     for c in range(m):
-                        y1, y2 = y[kseg - 1, c], y[kseg, c]
+                        y1, y2 = y[kseg - 1 - base, c], y[kseg - base, c]
                         slope = (y2 - y1) / (t2 - t1)
                         acc[c] += (tb - ta) * (y1 + slope * (tm - t1))
                 cursor = upper
@@ -118,11 +147,18 @@ def _box_walk(t, y, order, t_first, rate_hz, count, out, peak):
             for c in range(m):
                 average = (acc[c] - prev[c]) / d
                 if not peak:
-                    out[j - 1, c] = average
+                    out[j - 1 - out_row0, c] = average
                 elif abs(average) > out[0, c]:
                     out[0, c] = abs(average)
         for c in range(m):
             prev[c] = acc[c]
+    state[W_CURSOR] = cursor
+    state[W_KSEG] = kseg
+    state[W_SEG] = seg
+    state[W_T0], state[W_T1] = t0, t1
+    state[W_QUAD] = 1.0 if quad else 0.0
+    state[W_DEN0], state[W_DEN1], state[W_DEN2] = den0, den1, den2
+    state[W_B0], state[W_B1], state[W_B2] = b0, b1, b2
 
 
 @dataclass
@@ -169,6 +205,104 @@ class StepTrace:
             raise ValueError("uniform_peak needs at least one sample")
         return box_peak(self.times, np.ascontiguousarray(self.values), self.order,
                         t_start + 0.5 * d, float(rate_hz), count)
+
+
+class GridReader:
+    """:meth:`StepTrace.uniform` (or :meth:`StepTrace.uniform_peak`) of a trace that is
+    still being computed: fed the trace's points as they come, it walks the grid as far
+    as they reach, and :meth:`finish` gives the same numbers to the bit as reading the
+    whole trace at the end (the walk's state is carried from one part to the next).
+
+    columns: indices of the fed values' columns to read (default all). Keeps only the
+    points the walk has not passed (the two before its step included).
+    """
+
+    def __init__(self, rate_hz: float, t_start: float, t_stop: float,
+                 columns: list[int] | None = None, peak: bool = False):
+        self.rate_hz = float(rate_hz)
+        d = 1.0 / rate_hz
+        self.t_first = t_start + 0.5 * d
+        self.count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
+        self.columns = columns
+        self.peak = peak
+        self.edges = 0  # edges walked (edge j closes sample j - 1; count + 1 in all)
+        self.state = None
+        self.base = 0  # trace index of the window's first point
+        self.t = self.y = self.order = None
+        self.out = None
+
+    @property
+    def done(self) -> bool:
+        """Every sample is known (the rest of the trace is not needed)."""
+        return self.edges == self.count + 1
+
+    def feed(self, first_index: int, times, values, orders) -> None:
+        """Points ``first_index``, ``first_index + 1``... of the trace: times (k,), values
+        (k, r), orders (k,), following on from those fed before (the first feed may start
+        anywhere before the grid's start, or at the trace's first point)."""
+        if self.done:
+            return
+        y = values if self.columns is None else values[:, self.columns]
+        if self.t is None:
+            self.base, self.t, self.y, self.order = first_index, times, y, orders
+            self.out = np.zeros((1 if self.peak else max(self.count, 0), y.shape[1]))
+        else:
+            if first_index != self.base + self.t.size:
+                raise ValueError(f"GridReader fed point {first_index}, expected "
+                                 f"{self.base + self.t.size}")
+            self.t = np.concatenate((self.t, times))
+            self.y = np.concatenate((self.y, y))
+            self.order = np.concatenate((self.order, orders))
+        self._walk(final=False)
+
+    def finish(self):
+        """After the trace's last point: ``(grid, (count, m))`` as :meth:`StepTrace.uniform`
+        gives, or with ``peak`` the (m,) of :meth:`StepTrace.uniform_peak`."""
+        if self.count <= 0:
+            if self.peak:
+                raise ValueError("uniform_peak needs at least one sample")
+            width = len(self.columns) if self.columns is not None else (
+                0 if self.y is None else self.y.shape[1])
+            return self._grid(), np.zeros((0, width))
+        self._walk(final=True)
+        if self.peak:
+            return self.out[0]
+        return self._grid(), self.out
+
+    def _grid(self) -> np.ndarray:
+        return self.t_first + (1.0 / self.rate_hz) * np.arange(max(self.count, 0))
+
+    def _walk(self, final: bool) -> None:
+        if self.count <= 0 or self.done or self.t is None:
+            return
+        t = self.t
+        d = 1.0 / self.rate_hz
+        if self.state is None:
+            if not final and t[-1] < self.t_first - 0.5 * d:
+                self._keep_from(self.base + t.size - 3)  # the steps before the grid's start
+                return
+            self.state = _walk_state(t, self.base, self.t_first, self.rate_hz, self.y.shape[1])
+        if final:
+            edges = self.count + 1
+        else:
+            # the edges at or before the last point: their walk stops within the window
+            # (edge j is t_first + (j - 0.5) d, as the walk computes it)
+            edges = min(self.count + 1, max(self.edges, int((t[-1] - self.t_first) / d) - 1))
+            while edges <= self.count and self.t_first + (edges - 0.5) * d <= t[-1]:
+                edges += 1
+            while edges > self.edges and self.t_first + (edges - 1 - 0.5) * d > t[-1]:
+                edges -= 1
+        if edges > self.edges:
+            _box_walk(t, np.ascontiguousarray(self.y), self.order, self.base, self.t_first,
+                      self.rate_hz, self.edges, edges, self.out, 0, self.peak, self.state)
+            self.edges = edges
+        self._keep_from(int(self.state[W_KSEG]) - 2)
+
+    def _keep_from(self, index: int) -> None:
+        cut = max(0, index - self.base)
+        if cut:
+            self.t, self.y, self.order = self.t[cut:], self.y[cut:], self.order[cut:]
+            self.base += cut
 
 
 @dataclass

@@ -111,6 +111,31 @@ def test_default_inverter_sources_at_least_the_jedec_minimum_current(vdd, drop, 
     assert typical / TYPICAL_DRIVE_FACTOR <= -source_amps <= typical * TYPICAL_DRIVE_FACTOR
 
 
+#: Operating points of the output-current check: (in, out) as fractions of the supply,
+#: at the rails, at mid-supply, and past the rails (where the input clamps conduct).
+OUTPUT_POINTS = [(a, b) for a in (-0.1, 0.0, 0.5, 1.0, 1.1) for b in (-0.1, 0.0, 0.5, 1.0, 1.1)]
+
+
+@pytest.mark.parametrize(("given", "model"), [({}, None), ({"form": "behavioural"}, None),
+                                              ({}, "behavioural"), ({"gain": 8.0}, None)],
+                         ids=["transistor", "behavioural", "behavioural-model", "gain-given"])
+@pytest.mark.parametrize(("vdd", "gnd"), [(9.0, 0.0), (5.0, 0.2), (0.0, 0.0), (15.0, -0.3)])
+def test_the_output_current_alone_is_the_stamps_output_node_current_to_the_bit(given, model,
+                                                                                 vdd, gnd):
+    # source: the same equations as the stamp's output node (blocks/inverter.py), so the
+    # same floating-point operations; (0, 0) is the collapsed supply before power-on
+    values = part_values("inverter", model, **given)
+    gate = Stamped("inverter", values)
+    for in_fraction, out_fraction in OUTPUT_POINTS:
+        vin = gnd + in_fraction * (vdd - gnd)
+        vout = gnd + out_fraction * (vdd - gnd)
+        x = gate.state(**{"in": vin, "out": vout, "vdd": vdd, "gnd": gnd})
+        expected = gate.current_out_of(x, "out")
+        got = inverter.out_node_amps(gate.P, 0, vin, vout, vdd, gnd)
+        assert got == expected and math.copysign(1.0, got) == math.copysign(1.0, expected), \
+            (in_fraction, out_fraction, got, expected)
+
+
 # ---------------------------------------------------------------------------------
 # Jacobians
 

@@ -39,6 +39,62 @@ def test_a_render_is_the_same_to_the_bit_with_one_thread_or_several(scenario, tm
         assert (one_dir / name).read_bytes() == (many_dir / name).read_bytes()
 
 
+@pytest.mark.parametrize("scenario", ["tri-square.yaml", "bridged.yaml", "saw.yaml"])
+def test_a_render_is_the_same_to_the_bit_read_during_or_after_the_simulation(scenario, tmp_path,
+                                                                             monkeypatch):
+    # common practice: a reader that carries its state across the chunks of a growing
+    # trace gives what it gives on the finished trace; two audio chunks with their seam
+    opts = RenderOptions(seconds=1.3, settle=0.05, progress=False)
+    patch = load_patch(SCENARIOS / scenario)
+    outputs = []
+    for streamed in (False, True):
+        monkeypatch.setattr(render_module, "STREAM_DURING_SIMULATION", streamed)
+        folder = tmp_path / f"streamed-{streamed}"
+        outputs.append((render(patch, folder, opts), folder))
+    (after, after_dir), (during, during_dir) = outputs
+    assert _without_wall_time(after.report) == _without_wall_time(during.report)
+    assert after.report["outputs"]  # the gates' peaks were read (all these patches have gates)
+    for name in after.signals:
+        assert np.array_equal(after.signals[name], during.signals[name])
+    assert np.array_equal(after.audio_volts, during.audio_volts)
+    for name in (f"{patch.name}.wav", f"{patch.name}.png", f"{patch.name}.spectrum.png"):
+        assert (after_dir / name).read_bytes() == (during_dir / name).read_bytes()
+
+
+def test_a_simulation_failing_while_its_trace_is_read_stops_cleanly(tmp_path, monkeypatch):
+    import threading
+
+    from sim.errors import SolverError
+
+    real = render_module.simulate_patch
+
+    def fail_after_some_chunks(*args, on_chunk=None, **kwargs):
+        def hook(times, values, orders):
+            on_chunk(times, values, orders)
+            if times[-1] > 0.6:
+                raise SolverError("the solver could not converge at t = 600 ms (test)")
+        return real(*args, on_chunk=hook, **kwargs)
+
+    monkeypatch.setattr(render_module, "simulate_patch", fail_after_some_chunks)
+    before = threading.active_count()
+    with pytest.raises(SolverError, match="600 ms"):
+        render(load_patch(SCENARIOS / "tri-square.yaml"), tmp_path / "out",
+               RenderOptions(seconds=1.0, settle=0.05, progress=False))
+    assert threading.active_count() == before
+    assert not (tmp_path / "out").exists()
+
+
+def test_an_error_in_the_reader_beside_the_simulation_surfaces(tmp_path, monkeypatch):
+    def broken(self, *args):
+        raise RuntimeError("reader broke (test)")
+
+    monkeypatch.setattr(render_module._TraceStream, "_feed", broken)
+    with pytest.raises(RuntimeError, match="reader broke"):
+        render(load_patch(SCENARIOS / "tri-square.yaml"), tmp_path / "out",
+               RenderOptions(seconds=1.0, settle=0.05, progress=False))
+    assert not (tmp_path / "out").exists()
+
+
 def test_the_signals_of_a_render_are_the_probes_listening_nets_and_supply():
     patch = load_patch(SCENARIOS / "tri-square.yaml")
     result = render(patch, write=False, opts=OPTS)

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from sim.trace import StepTrace
+from sim.trace import GridReader, StepTrace
 
 
 def _trace(times, values, order):
@@ -78,3 +78,39 @@ def test_the_peak_of_a_grid_is_the_largest_magnitude_of_its_averages_to_the_bit(
     tr = StepTrace(names=["a", "b", "c"], times=t, values=values, order=order)
     _, averages = tr.uniform(400.0, 0.05, 0.95)
     assert np.array_equal(tr.uniform_peak(400.0, 0.05, 0.95), np.max(np.abs(averages), axis=0))
+
+
+@pytest.mark.parametrize("peak", [False, True])
+@pytest.mark.parametrize(("t_start", "t_stop"), [(0.0, 1.0), (0.05, 0.95), (0.3, 0.31)])
+@pytest.mark.parametrize("seed", [4, 5])
+def test_a_grid_read_while_the_trace_grows_is_the_same_to_the_bit(peak, t_start, t_stop, seed):
+    # common practice: a streamed reduction that carries its running state from one part
+    # to the next equals the one-pass reduction exactly; parts of random sizes, from one
+    # point to many steps, put the seams everywhere (inside a step, on a grid edge)
+    rng = np.random.default_rng(seed)
+    t = np.sort(np.concatenate([[0.0, 1.0], rng.uniform(0, 1, 2000)]))
+    values = rng.normal(size=(t.size, 3))
+    order = rng.integers(1, 3, t.size)
+    tr = StepTrace(names=["a", "b", "c"], times=t, values=values, order=order)
+    reader = GridReader(400.0, t_start, t_stop, [2, 0], peak=peak)
+    at = 0
+    while at < t.size:
+        size = int(rng.choice([1, 2, 3, 7, 50, 400]))
+        reader.feed(at, t[at:at + size], values[at:at + size], order[at:at + size])
+        at += size
+    got = reader.finish()
+    if peak:
+        assert np.array_equal(got, tr.uniform_peak(400.0, t_start, t_stop)[[2, 0]])
+    else:
+        grid, averages = tr.uniform(400.0, t_start, t_stop, [2, 0])
+        assert np.array_equal(got[0], grid) and np.array_equal(got[1], averages)
+        assert averages.shape == (int(round((t_stop - t_start) * 400.0)), 2)
+
+
+def test_a_grid_reader_refuses_points_that_do_not_follow_on():
+    # common practice: a gap in a stream is an error, not a silently wrong average
+    reader = GridReader(10.0, 0.0, 1.0)
+    t = np.linspace(0.0, 1.0, 11)
+    reader.feed(0, t[:5], np.zeros((5, 1)), np.ones(5, np.int64))
+    with pytest.raises(ValueError, match="expected 5"):
+        reader.feed(6, t[6:], np.zeros((5, 1)), np.ones(5, np.int64))
