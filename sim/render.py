@@ -885,10 +885,7 @@ class _TraceStream:
             reader.feed(index, *batch)
         d = 1.0 / (self.rate_hz * AUDIO_OVERSAMPLE)
         while self.audio_next < len(self.audio_chunks):
-            _, _, lo, hi = self.audio_chunks[self.audio_next]
-            reader = GridReader(self.rate_hz * AUDIO_OVERSAMPLE, self.t_start + lo / self.rate_hz,
-                                self.t_start + hi / self.rate_hz,
-                                [self.record.index(n) for n in self.needed])
+            reader = self._audio_reader(self.audio_next)
             if window[0][-1] < reader.t_first - 0.5 * d:
                 break  # the trace has not reached it yet
             reader.feed(start, *window)
@@ -896,6 +893,13 @@ class _TraceStream:
             self.audio_next += 1
         for c in [c for c, reader in self.audio_open.items() if reader.done]:
             self._decimate(c, self.audio_open.pop(c).finish()[1])
+
+    def _audio_reader(self, c: int) -> GridReader:
+        """The 16x-grid reader of the WAV path's chunk c, margins included."""
+        _, _, lo, hi = self.audio_chunks[c]
+        return GridReader(self.rate_hz * AUDIO_OVERSAMPLE, self.t_start + lo / self.rate_hz,
+                          self.t_start + hi / self.rate_hz,
+                          [self.record.index(n) for n in self.needed])
 
     def _decimate(self, c: int, y: np.ndarray) -> None:
         a, b, lo, _ = self.audio_chunks[c]
@@ -908,10 +912,7 @@ class _TraceStream:
         if self.gates is not None and self.gate_first is None:
             self._feed_gates(tail[0] + tail[1].size, empty, tail[0], tail[1:], final=True)
         while self.audio_next < len(self.audio_chunks):  # a trace ending before a chunk
-            _, _, lo, hi = self.audio_chunks[self.audio_next]
-            reader = GridReader(self.rate_hz * AUDIO_OVERSAMPLE, self.t_start + lo / self.rate_hz,
-                                self.t_start + hi / self.rate_hz,
-                                [self.record.index(n) for n in self.needed])
+            reader = self._audio_reader(self.audio_next)
             reader.feed(tail[0], *tail[1:])
             self.audio_open[self.audio_next] = reader
             self.audio_next += 1
