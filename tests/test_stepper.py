@@ -122,3 +122,28 @@ def test_a_speaker_coil_after_each_flip_costs_a_bounded_number_of_iterations():
     flips = np.count_nonzero(np.diff(np.sign(sq - 4.5)) != 0)
     assert flips > 80
     assert trace.counters["newton_iterations"] / flips < 400
+
+
+def test_the_unknown_shared_by_every_part_is_eliminated_last():
+    # source: minimum-degree ordering (Tinney and Walker 1967, from memory): eliminate
+    # the unknowns with the fewest neighbours first. In a star the hub (unknown 1, like
+    # vdd beside every gate) goes last, and eliminating the leaves first fills nothing.
+    from sim.compile import elimination_order
+
+    assert elimination_order(5, [[1, 2, 0], [1, 3, 0], [1, 4, 0]]) == [0, 2, 3, 4, 1]
+    circuit = compile_patch(load_patch(OSCILLATOR.parent / "mixer.yaml"))
+    assert circuit.names[0] == "gnd" and circuit.names[-1] == "vdd"
+
+
+def test_the_order_of_the_unknowns_does_not_change_the_pitch(monkeypatch, trace):
+    # The order of the unknowns is bookkeeping (it only changes how the LU eliminates):
+    # in the order the nets were named, the oscillator must keep its pitch to far below
+    # anything audible (source: the equations are the same, only rounding differs).
+    import sim.compile
+
+    monkeypatch.setattr(sim.compile, "elimination_order", lambda n, groups: list(range(n)))
+    named = simulate(sim.compile.compile_patch(load_patch(OSCILLATOR)), 0.25, ["sq"])
+    assert named.values.shape[1] == 1
+    period_named, _ = crossing_fit(named, 0.05)
+    period_ordered, _ = crossing_fit(trace, 0.05)
+    assert abs(1200 * np.log2(period_named / period_ordered)) < 0.001
