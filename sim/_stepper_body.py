@@ -28,8 +28,8 @@ Method
   (measured: 6 % fewer iterations, every scenario's pitch unchanged to 0.002 cent).
 - Flips: an accepted normal step in which a fast unknown (no part capacitance) moved by
   more than ``flip_volts`` at more than ``flip_slew`` volts per second is the regenerative
-  part of a flip: recovery mode (below) takes over at once, and until the step has grown
-  back to ``RELAX_SECONDS`` the step is "relaxed": its error is measured on the part
+  part of a flip: recovery mode (below) takes over at once, and until the second step of
+  ``RELAX_SECONDS`` or more the step is "relaxed": its error is measured on the part
   capacitors' own voltages (the slow states that carry the flip's timing on) and on
   audible nets by their share of an audio sample, not on the node voltages' nanosecond
   transient (inaudible; the flip's timing was decided during the slow passage, resolved
@@ -126,7 +126,7 @@ MAX_GROWTH = 2.0
 MIN_SHRINK = 0.2
 #: Safety factor on the optimal step predicted from the error estimate.
 SAFETY = 0.9
-#: After a flip the error of fast unknowns is relaxed until the step has grown to this:
+#: After a flip the steps are relaxed until the second step of this length or more:
 #: their transients (stray capacitance against kilohms, at most a few hundred ns) are
 #: over by then, and fast unknowns that carry a slow one's current (a diode in the
 #: integrator's path) are watched again before they matter (measured: relaxing until
@@ -381,8 +381,8 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relaxed, sampl
     ``weighted`` False holds every unknown to the full tolerance, else unknown i's error
     is divided by unk[i, U_WEIGHT].
 
-    ``relaxed`` (after a flip, until the step is back to RELAX_SECONDS) changes what is
-    measured, so the flip's fast transient is stepped over instead of resolved:
+    ``relaxed`` (after a flip, until relaxed stepping ends: see RELAX_SECONDS) changes
+    what is measured, so the flip's fast transient is stepped over instead of resolved:
     - A part capacitor's own voltage is held to the absolute tolerance: row i of the mass
       matrix times the error, over its diagonal, for every slow voltage unknown i. That
       charge is what carries a flip's error on to the next flips (held to the relative
@@ -400,11 +400,9 @@ def _error_norm(order, h, h1, h2, x, xn, xe, unk, rtol, weighted, relaxed, sampl
     err = 0.0
     for i in range(1, x.shape[0]):
         scale = unk[i, U_ATOL] + rtol * max(abs(x[i]), abs(xn[i]))
-        if relaxed and unk[i, U_VOLT] == 0.0 and unk[i, U_SLOW] > 0.0:
-            # an inductor's current (a speaker coil's): measured as in normal steps (its
-            # transient after a flip is slow and audible)
-            weight = unk[i, U_WEIGHT] if weighted else 1.0
-        elif relaxed:
+        # an inductor's current (slow, not a voltage) is measured as in normal steps: its
+        # transient after a flip (a speaker coil's) is slow and audible
+        if relaxed and (unk[i, U_VOLT] > 0.0 or unk[i, U_SLOW] == 0.0):
             if unk[i, U_SLOW] > 0.0:
                 own = 0.0
                 diag = 1.0

@@ -332,12 +332,6 @@ GATE_KIND = "inverter"
 #: The ground net: 0 V by definition, never a recorded unknown.
 GROUND = "gnd"
 
-#: Samples evaluated per batch by :func:`gate_output_amps` (bounds the memory used:
-#: a few MB for a package of gates; each batch holds the GIL for a few ms only, so the
-#: threads of a render beside it are not held up long).
-OUTPUT_BATCH_SAMPLES = 4096
-
-
 def _listened_names(patch) -> list[str]:
     """The probes, the listening nets or listened current, and ``vdd``."""
     current = listened_current(patch)
@@ -392,42 +386,20 @@ def speaker_report(patch, values: dict[str, np.ndarray], warnings: list[str]) ->
     return out
 
 
-def _gate_layout(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """The gates alone as a kernel circuit: ``(pf, nf, tab, df)`` on the unknowns gnd,
-    vdd, then (in, out) of each gate. rows: (g, cols) as for :func:`gate_output_amps`."""
-    order = kernel.kind_order()
-    gates, cols = rows.shape
-    tab = np.zeros((len(order), kernel.TAB_SIZE), np.int64)
-    tab[order.index(GATE_KIND)] = (0, cols, 0, 4, gates, 0, 0)
-    pf = np.ascontiguousarray(rows, dtype=np.float64).ravel()
-    nf = np.array([[2 + 2 * j, 3 + 2 * j, 1, 0] for j in range(gates)], np.int64).ravel()
-    return pf, nf, tab, np.zeros(1)
-
-
 def gate_output_amps(rows: np.ndarray, vin_volts: np.ndarray, vout_volts: np.ndarray,
                      vdd_volts: np.ndarray) -> np.ndarray:
     """Current (A) each gate's output delivers into its net, positive when sourcing.
 
     rows: (g, cols) the gates' kernel parameter rows (``Kind.row`` plus the two data
     columns); vin_volts, vout_volts: (m, g); vdd_volts: (m,), gnd at 0 V. Evaluated with
-    the gates' own equations through the compiled kernel. Returns (m, g).
+    the gates' own equations through the kernel's ``gate_currents``, as along a trace.
+    Returns (m, g).
     """
-    k = kernel.load()
-    pf, nf, tab, df = _gate_layout(rows)
     gates = rows.shape[0]
-    size = 2 + 2 * gates  # gnd, vdd, then (in, out) of each gate
-    count = vin_volts.shape[0]
-    out = np.empty((count, gates))
-    for start in range(0, count, OUTPUT_BATCH_SAMPLES):
-        stop = min(count, start + OUTPUT_BATCH_SAMPLES)
-        x = np.zeros((stop - start, size))
-        x[:, 1] = vdd_volts[start:stop]
-        x[:, 2::2] = vin_volts[start:stop]
-        x[:, 3::2] = vout_volts[start:stop]
-        f = np.zeros_like(x)
-        k.evaluate_rows(x, 0.0, pf, nf, tab, df, f)
-        out[start:stop] = -f[:, 3::2]  # f is the current flowing into the gate at out
-    return out
+    values = np.column_stack([vdd_volts, vin_volts, vout_volts]).astype(np.float64)
+    return kernel.load().gate_currents(values, 0, 0, np.arange(1, 1 + gates),
+                                       np.arange(1 + gates, 1 + 2 * gates),
+                                       np.ascontiguousarray(rows, dtype=np.float64))
 
 
 def gate_limit_amps(rows: np.ndarray, vdd_volts: float) -> np.ndarray:

@@ -37,8 +37,8 @@ class StepOptions:
         constant (stray capacitance over a gate's transconductance, 2 pF / 2 mS = 1 ns).
     flip_volts, flip_slew_volts_per_second: an accepted step in which a fast net moved by
         more than flip_volts, faster than flip_slew, is the regenerative part of a flip:
-        backward Euler steps over it. Until the step is back to 10 us the error is
-        measured on the part capacitors' own voltages (held to atol) and on the audible
+        backward Euler steps over it. Until the second step of 10 us or more (at the
+        latest 50 us after the flip) the error is measured on the part capacitors' own voltages (held to atol) and on the audible
         unknowns by their share of an audio sample, not on the nets' nanosecond
         transient. The flip's timing was decided before, in its slow passage, at full
         tolerance.
