@@ -79,7 +79,7 @@ class StepOptions:
 NEWTON_STEP_FRACTION = 0.25
 
 COUNTER_NAMES = ("steps", "rejected_error", "rejected_newton", "newton_iterations", "events",
-                 "event_trials")
+                 "event_trials", "lu_fallbacks")
 
 #: Initial capacity of the accepted-point buffer per chunk.
 POINTS_PER_CHUNK = 1 << 16
@@ -188,7 +188,8 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
         opt[k.O_LAND] = 1.0 if t_chunk >= seconds else 0.0
         while True:
             got, status = k.run(st, x, x1, x2, circuit.mass, pf, circuit.nf, circuit.tab,
-                                circuit.df, unk, opt, auto, rec, out_t, out_y, out_o, cnt)
+                                circuit.df, unk, opt, auto, rec, out_t, out_y, out_o, cnt,
+                                circuit.lu_ptr, circuit.lu_idx)
             times.append(out_t[:got].copy())
             values.append(out_y[:got].copy())
             orders.append(out_o[:got].copy())

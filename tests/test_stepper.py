@@ -147,3 +147,40 @@ def test_the_order_of_the_unknowns_does_not_change_the_pitch(monkeypatch, trace)
     period_named, _ = crossing_fit(named, 0.05)
     period_ordered, _ = crossing_fit(trace, 0.05)
     assert abs(1200 * np.log2(period_named / period_ordered)) < 0.001
+
+
+def test_the_elimination_pattern_holds_every_nonzero_and_solves_like_pivoting():
+    # source: Gaussian elimination without pivoting computes the same solution as with
+    # partial pivoting whenever its pivots are nonzero (any numerical analysis text);
+    # numpy's LAPACK solve is the independent reference. Each scenario's Jacobian (the
+    # stamps at random states beyond the rails, plus a0 times the mass matrix) must lie
+    # inside the pattern the compiler predicts, fill-in included, and the static-order
+    # solver must agree with LAPACK on it.
+    from sim import kernel
+    from sim.compile import elimination_pattern
+
+    assert elimination_pattern(4, [[1, 3], [2, 3]])[1].tolist() == [3, 3]  # 3 fills nothing
+    # a star eliminated centre-first fills the leaves' square (source: elimination graphs)
+    ptr, idx = elimination_pattern(4, [[1, 2], [1, 3]])
+    assert idx[ptr[1]:ptr[2]].tolist() == [2, 3] and idx[ptr[2]:ptr[3]].tolist() == [3]
+    k = kernel.load()
+    rng = np.random.default_rng(7)
+    for path in sorted(OSCILLATOR.parent.glob("*.yaml")):
+        c = compile_patch(load_patch(path))
+        n = c.size
+        inside = np.eye(n, dtype=bool)
+        for q in range(n):
+            for j in c.lu_idx[c.lu_ptr[q]:c.lu_ptr[q + 1]]:
+                inside[q, j] = inside[j, q] = True
+        for trial in range(5):
+            x = rng.uniform(-2.0, c.supply_volts + 2.0, n)
+            x[0] = 0.0
+            f, G = np.zeros(n), np.zeros((n, n))
+            k.evaluate(x, 1e-3 * trial, c.pf, c.nf, c.tab, c.df, f, G)
+            J = G + 1e5 * c.mass
+            assert not np.any((J[1:, 1:] != 0) & ~inside[1:, 1:]), path.name
+            b = rng.standard_normal(n)
+            expected = np.linalg.solve(J[1:, 1:], b[1:])
+            A, y = J.copy(), b.copy()
+            assert k.lu_static(A, y, n, c.lu_ptr, c.lu_idx), path.name
+            assert np.allclose(y[1:], expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
