@@ -125,7 +125,8 @@ lean = numba.njit(cache=True, _nrt=False)
 #: the step's calls carry some thirty arrays (the per-kind views among them): measured
 #: per Newton iteration on the oscillator scenario, the calls cost a third of the time
 #: (interleaved A/B: 1.35x faster inlined, 1.12x on the mixer). The stamps and the LU
-#: stay calls: inlined, they made the loop slower (about 10 % and 0 %).
+#: stay calls: inlined, the LU gained nothing and the stamps 4 %, for a cold compile
+#: half as long again (18 s to 28 s on this machine).
 inlined = numba.njit(cache=True, _nrt=False, inline='always')
 
 #: Step-size controller: never grow by more than this per step (keeps BDF2's
@@ -582,59 +583,73 @@ def _loop(st, x, x1, x2, xn, xp, xq, c, v, xlo, f, J, r, mrow, mcol, mval, pf, P
     growth = opt[O_GROWTH]
     cap = out_t.shape[0]
     k = 0
+    # Bisection of a flip inside a failed step runs through the same attempt as every
+    # step (one call site: the attempt is inlined once, which halves the compile time).
+    bisecting = False
+    lo = hi = 0.0
+    have_lo = False
+    t = h = h1 = h2 = jv = 0.0
+    mode = nh = order = 0
     while True:
-        t = st[S_T]
-        remaining = t_end - t
-        if remaining <= 1e-15 * max(1.0, abs(t_end)):
-            return k, 0
-        if k >= cap:
-            return k, 1
-        h = min(st[S_H], hmax)
-        if opt[O_LAND] > 0.0:
-            if h >= remaining:
-                h = remaining
-            elif h > 0.5 * remaining:
-                h = 0.5 * remaining
-        mode = int(st[S_MODE])
-        nh = int(st[S_NHIST])
-        h1 = st[S_H1]
-        h2 = st[S_H2]
-        order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
-        # no jump test in recovery (jumps are expected) nor while relaxed after a flip
-        # (the fast unknowns' decay is not followed, so the predictor misses it)
-        jv = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
-        outcome, worst = _attempt(order, nh, t, h, h1, x, x1, xn, xp, xq, c, mrow, mcol,
-                                  mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv, cnt,
+        if bisecting:
+            h_try = 0.5 * (lo + hi)
+            jv_try = jump_v
+            cnt[K_TRIALS] += 1
+        else:
+            t = st[S_T]
+            remaining = t_end - t
+            if remaining <= 1e-15 * max(1.0, abs(t_end)):
+                return k, 0
+            if k >= cap:
+                return k, 1
+            h = min(st[S_H], hmax)
+            if opt[O_LAND] > 0.0:
+                if h >= remaining:
+                    h = remaining
+                elif h > 0.5 * remaining:
+                    h = 0.5 * remaining
+            mode = int(st[S_MODE])
+            nh = int(st[S_NHIST])
+            h1 = st[S_H1]
+            h2 = st[S_H2]
+            order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
+            # no jump test in recovery (jumps are expected) nor while relaxed after a
+            # flip (the fast unknowns' decay is not followed, so the predictor misses it)
+            jv = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
+            h_try = h
+            jv_try = jv
+        outcome, worst = _attempt(order, nh, t, h_try, h1, x, x1, xn, xp, xq, c, mrow, mcol,
+                                  mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv_try, cnt,
                                   st, x2, lu)
+        if bisecting:
+            if outcome == N_OK:
+                lo = h_try
+                have_lo = True
+                for i in range(n):
+                    xlo[i] = xn[i]
+            else:
+                hi = h_try
+            if hi - lo > event_dt:
+                continue
+            bisecting = False
+            cnt[K_EVENTS] += 1
+            if have_lo:
+                k = _accept(st, t + lo, lo, x, x1, x2, xlo, rec, out_t, out_y, out_o, k,
+                            order)
+                cnt[K_STEPS] += 1
+            st[S_HNORMAL] = h
+            st[S_MODE] = MODE_RECOVER
+            st[S_NHIST] = 0.0
+            st[S_HGOAL] = h
+            st[S_H] = min(hi - lo, opt[O_H_RESTART])
+            continue
         if mode == MODE_NORMAL and outcome != N_OK:
             if h > event_dt:
-                # A flip inside (t, t+h]: bracket it by bisection.
+                # A flip inside (t, t+h]: bracket it by bisection (the attempts above).
+                bisecting = True
                 lo = 0.0
                 hi = h
                 have_lo = False
-                while hi - lo > event_dt:
-                    mid = 0.5 * (lo + hi)
-                    cnt[K_TRIALS] += 1
-                    o2, w2 = _attempt(order, nh, t, mid, h1, x, x1, xn, xp, xq, c, mrow,
-                                      mcol, mval, pf, P, N, D, unk, opt, auto, f, J, r, v,
-                                      jump_v, cnt, st, x2, lu)
-                    if o2 == N_OK:
-                        lo = mid
-                        have_lo = True
-                        for i in range(n):
-                            xlo[i] = xn[i]
-                    else:
-                        hi = mid
-                cnt[K_EVENTS] += 1
-                if have_lo:
-                    k = _accept(st, t + lo, lo, x, x1, x2, xlo, rec, out_t, out_y, out_o, k,
-                                order)
-                    cnt[K_STEPS] += 1
-                st[S_HNORMAL] = h
-                st[S_MODE] = MODE_RECOVER
-                st[S_NHIST] = 0.0
-                st[S_HGOAL] = h
-                st[S_H] = min(hi - lo, opt[O_H_RESTART])
                 continue
             if outcome == N_JUMPED:
                 # Stepping over a flip (this step was short already): recovery mode,
