@@ -256,7 +256,7 @@ def mass_rows(M):
             if M[i, j] != 0.0:
                 count += 1
     mrow = np.zeros(n + 1, dtype=np.int64)
-    mcol = np.zeros(count, dtype=np.int64)
+    mcol = np.zeros(count, dtype=np.uint64)
     mval = np.zeros(count)
     q = 0
     for i in range(n):
