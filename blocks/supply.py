@@ -41,8 +41,8 @@ def stamp(x, t, P, N, D, f, G):
 def emf_volts_array(t_seconds, volts, ramp_seconds):
     """:func:`emf_volts` for an array of times (numpy, no compile at start-up); shape of t."""
     t = np.asarray(t_seconds, dtype=np.float64)
-    if ramp_seconds <= 0.0:
-        return np.full_like(t, volts)
+    if ramp_seconds <= 0.0 or (t.size and t.min() >= ramp_seconds):
+        return np.full_like(t, volts)  # (the ramp's polynomial is exactly 1 after it)
     u = np.clip(t / ramp_seconds, 0.0, 1.0)
     return volts * u * u * (3.0 - 2.0 * u)
 

@@ -487,8 +487,8 @@ def _sheet(args) -> int:
 #: to each other each time a compiled call returns (a chunk of the stepper, a chunk of
 #: the WAV path): with Python's default of 5 ms, a thread back from a call that released
 #: the GIL waits up to that long while another runs Python (an import, a plot). A tenth
-#: of it bounds those waits (the stepper returns every 50 ms of simulated time, a few ms
-#: of wall time) for a few microseconds per switch.
+#: of it bounds those waits (the stepper returns every 250 ms of simulated time, tens of
+#: ms of wall time) for a few microseconds per switch.
 SWITCH_INTERVAL_SECONDS = 0.0005
 
 

@@ -66,10 +66,10 @@ RENDER_THREADS = 2
 STREAM_DURING_SIMULATION = True
 
 #: The simulation hands its finished points to that thread in batches of at least this
-#: many simulated seconds (five of its 50 ms chunks): few, large compiled calls that
-#: release the GIL, rather than a Python round trip per chunk competing with the
-#: simulation's own thread for the GIL; the last batch, read after the simulation, is
-#: a few tens of ms of work.
+#: many simulated seconds (one chunk of StepOptions.chunk_seconds): few, large compiled
+#: calls that release the GIL, rather than many short Python round trips competing with
+#: the simulation's own thread for the GIL; the last batch, read after the simulation,
+#: is a few tens of ms of work.
 STREAM_BATCH_SECONDS = 0.25
 
 #: Simulated seconds above which a progress bar is shown.
