@@ -21,8 +21,10 @@ Checklist for a new kind (see DEVELOPERS.md for a worked example):
    - ``P``   (count, len(params) + 2) float64: one row per part of this kind, the
      parameter values in declaration order (choices as their index in
      ``Param.choices``), then the offset and length of this part's slice of ``D``.
-   - ``N``   (count, local) int64: the global index of each local unknown (see
-     :meth:`Kind.local_names`).
+   - ``N``   (count, local) uint64: the global index of each local unknown (see
+     :meth:`Kind.local_names`); unsigned so that numba indexes ``f`` and ``G`` without
+     a test for negative indices. Use them only as indices (numba turns arithmetic
+     mixing them with signed integers into floats).
    - ``D``   (m,) float64: data blob shared by all parts of the kind (e.g. WAV samples).
    - ``f``   (n,) float64, ``G`` (n, n) float64: accumulated in place.
 
