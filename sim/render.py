@@ -11,6 +11,7 @@ import math
 import os
 import queue
 import threading
+import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -48,22 +49,32 @@ FULL_SCALE_VOLTS = 10.0
 
 #: Threads a render runs beside its own. While the simulation runs, one imports what the
 #: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers,
-#: then reads the finished part of the trace (STREAM_DURING_SIMULATION: the report's
-#: signals, the gates' output currents, the WAV path). After the simulation the last of
-#: that reading, the WAV samples and the spectrum plot run in these threads while this
-#: one measures the signals and draws the waveforms. Two match a 2-core machine: the
-#: compiled readers release the GIL, so they use the second core (measured on
-#: tri-square, 10 s: about 0.8 s from the end of the simulation to the report, of which
-#: the two plots take about 0.45 s). Each result is a function of the trace alone and is
-#: gathered in a fixed order, so the outputs are the same to the bit whatever the
-#: timing.
+#: then, for a slow simulation, reads the finished part of the trace
+#: (STREAM_DURING_SIMULATION: the report's signals, the gates' output currents, the WAV
+#: path). After the simulation the rest of that reading, the WAV samples and the
+#: spectrum plot run in these threads while this one measures the signals and draws the
+#: waveforms. Two match a 2-core machine: the compiled readers release the GIL, so they
+#: use the second core. Each result is a function of the trace alone and is gathered in
+#: a fixed order, so the outputs are the same to the bit whatever the timing.
 RENDER_THREADS = 2
 
 #: Read the trace while it is computed (:class:`_TraceStream`): the gates' output
 #: currents and their peaks, the report's signals and the WAV path's reads and
-#: decimation run in a pool thread beside the simulation, on its finished part. Off,
-#: they run after it; the outputs are the same to the bit either way.
-STREAM_DURING_SIMULATION = True
+#: decimation run in a pool thread beside the simulation, on its finished part. Off
+#: (False), they run after it, in both pool threads and this one; the outputs are the
+#: same to the bit either way. "auto" reads beside the simulation only when the stepper
+#: is slower than the readers (STREAM_ABOVE_SECONDS_PER_SECOND).
+STREAM_DURING_SIMULATION = "auto"
+
+#: With STREAM_DURING_SIMULATION "auto", the trace is read beside the simulation when a
+#: chunk run after the render's imports took more than this many wall seconds per
+#: simulated second. The readers take about 0.1 s per second of audio on one core
+#: (tri-square, 10 s: the report's signals 0.25 s, the gates' currents and peaks 0.33 s,
+#: the WAV path 0.5 s). Measured on whole 10 s renders, reading beside the simulation
+#: against after it: tri-square (the stepper at 0.06 to 0.07 s per second) 3.32 s
+#: against 2.94 s; the mixer (0.17 to 0.23) 4.62 against 4.87 s; step-down (0.3 to 0.37)
+#: 6.6 against 7.7 s. The threshold lies between, with room for this machine's noise.
+STREAM_ABOVE_SECONDS_PER_SECOND = 0.12
 
 #: The simulation hands its finished points to that thread in batches of at least this
 #: many simulated seconds (one chunk of StepOptions.chunk_seconds): few, large compiled
@@ -748,8 +759,13 @@ class _TraceStream:
     gives the same numbers to the bit as the same reader run on the finished trace.
     """
 
-    def __init__(self, patch, record: list[str], opts: "RenderOptions"):
+    def __init__(self, patch, record: list[str], opts: "RenderOptions", always: bool = True):
         self.patch = patch
+        self.always = always  # else read beside only a slow simulation ("auto")
+        self.active = True  # False once "auto" decided to read after the simulation
+        self.launch = None  # submits run() to the pool, set once the imports are started
+        self.warm = None  # the imports' future
+        self.mark = None  # (simulated s, wall s, imports done) at the end of a chunk
         fine_rate = opts.rate_hz * OVERSAMPLE
         self.t_start, t_stop = opts.settle, opts.settle + opts.seconds
         self.fine_rate = fine_rate
@@ -774,11 +790,38 @@ class _TraceStream:
 
     def on_chunk(self, times, values, orders) -> None:
         """simulate()'s hook: queue the chunk; hand a batch over every STREAM_BATCH_SECONDS."""
+        if not self.active:
+            return
         self.pending.append((times, values, orders))
+        if self.job is None and not self.always:
+            self._pace(float(times[-1]))
+            if not self.active:
+                return
         if times[-1] - self.pending[0][0][0] >= STREAM_BATCH_SECONDS:
             self._hand_over()
             if self.job is not None and self.job.done():
                 self.job.result()  # the reader failed: stop the simulation with its error
+
+    def _pace(self, t: float) -> None:
+        """"auto": at the end of the first chunk run after the imports beside the simulation
+        are done (before, the stepper waits for the GIL each time a chunk ends: on
+        tri-square a chunk took four times as long beside them), read beside the
+        simulation if that chunk was slower than STREAM_ABOVE_SECONDS_PER_SECOND, else
+        drop everything queued and let the render read the finished trace."""
+        now = time.perf_counter()
+        if self.mark is None or not self.mark[2]:
+            # (mark[2]: the imports were done when the chunk before this one ended)
+            self.mark = (t, now, self.warm is not None and self.warm.done())
+            return
+        t0, wall0, _ = self.mark
+        if t <= t0:
+            return
+        if (now - wall0) / (t - t0) > STREAM_ABOVE_SECONDS_PER_SECOND:
+            self.job = self.launch()
+        else:
+            self.active = False
+            self.pending = []
+            self.queue = queue.SimpleQueue()
 
     def _hand_over(self) -> None:
         if self.pending:
@@ -956,7 +999,7 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
 
     # (a wrong listen fails here, before the simulation)
     record = list(dict.fromkeys([*_listened_names(patch), *load_record_names(patch)]))
-    stream = (_TraceStream(patch, record, opts)
+    stream = (_TraceStream(patch, record, opts, always=STREAM_DURING_SIMULATION is True)
               if STREAM_DURING_SIMULATION and opts.solver == "compiled" else None)
     with ThreadPoolExecutor(RENDER_THREADS, thread_name_prefix="halfrail-render") as pool:
         warm = []
@@ -966,7 +1009,10 @@ def render(patch, out_dir: str | os.PathLike = "renders", opts: RenderOptions | 
             # from the disk cache needs the GIL: importing beside it would slow it down)
             warm.append(pool.submit(warm_up, opts.wav, write, patch, record))
             if stream is not None:
-                stream.job = pool.submit(stream.run, warm[0])
+                stream.launch = lambda: pool.submit(stream.run, warm[0])
+                stream.warm = warm[0]
+                if stream.always:
+                    stream.job = stream.launch()
 
         try:
             circuit, trace = simulate_patch(patch, opts, record, automation=automation,

@@ -61,10 +61,46 @@ def test_a_render_is_the_same_to_the_bit_read_during_or_after_the_simulation(sce
         assert (after_dir / name).read_bytes() == (during_dir / name).read_bytes()
 
 
+@pytest.mark.parametrize("wall_per_chunk, beside", [(0.01, False), (0.05, True)])
+def test_auto_reads_beside_the_simulation_only_when_it_is_slow(wall_per_chunk, beside,
+                                                               monkeypatch):
+    # The decision of STREAM_DURING_SIMULATION "auto", on a clock we set: chunks of
+    # 0.25 s simulated taking 0.01 s (25x real time) are read after the simulation,
+    # chunks taking 0.05 s (5x) beside it; the chunk during the imports does not count.
+    from concurrent.futures import Future
+
+    patch = load_patch(SCENARIOS / "tri-square.yaml")
+    record = list(dict.fromkeys([*render_module._listened_names(patch),
+                                 *render_module.load_record_names(patch)]))
+    stream = render_module._TraceStream(patch, record, OPTS, always=False)
+    imports = Future()
+    stream.warm = imports
+    job = Future()  # the reader's job, still running
+    stream.launch = lambda: job
+    clock = [0.0]
+    monkeypatch.setattr(render_module.time, "perf_counter", lambda: clock[0])
+
+    def chunk(end: float) -> None:
+        times = np.linspace(end - 0.25, end, 5)
+        stream.on_chunk(times, np.zeros((5, len(record))), np.full(5, 2))
+
+    chunk(0.25)
+    clock[0] += 1.0  # a slow chunk beside the imports: ignored
+    chunk(0.5)
+    imports.set_result(None)
+    for end in (0.75, 1.0):
+        clock[0] += wall_per_chunk
+        chunk(end)
+    assert (stream.job is job) == beside
+    assert stream.active == beside
+
+
 def test_a_simulation_failing_while_its_trace_is_read_stops_cleanly(tmp_path, monkeypatch):
     import threading
 
     from sim.errors import SolverError
+
+    monkeypatch.setattr(render_module, "STREAM_DURING_SIMULATION", True)
 
     real = render_module.simulate_patch
 
@@ -89,6 +125,7 @@ def test_an_error_in_the_reader_beside_the_simulation_surfaces(tmp_path, monkeyp
         raise RuntimeError("reader broke (test)")
 
     monkeypatch.setattr(render_module._TraceStream, "_feed", broken)
+    monkeypatch.setattr(render_module, "STREAM_DURING_SIMULATION", True)
     with pytest.raises(RuntimeError, match="reader broke"):
         render(load_patch(SCENARIOS / "tri-square.yaml"), tmp_path / "out",
                RenderOptions(seconds=1.0, settle=0.05, progress=False))
