@@ -154,8 +154,9 @@ def out_node_amps(P, k, vin, vout, vdd, vss):
     """Current (A) flowing from the output net into gate k: the stamp's ``f[out]`` term.
 
     The reports read the gates' output currents at every point of a trace; this is the
-    same arithmetic as :func:`stamp` for the output node, without their Jacobian and rail currents and without the input clamps
-    (which carry no output current), so about a third cheaper than :func:`stamp`.
+    same arithmetic as :func:`stamp` for the output node, without the Jacobian, the rail
+    currents and the input clamps (which carry no output current), so cheaper than
+    :func:`stamp`.
     tests/test_blocks.py checks it against the stamp to the bit.
     """
     if P[k, C_FORM] == 0.0:

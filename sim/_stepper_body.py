@@ -10,7 +10,9 @@ part capacitances, inductances) and ``f``/``G = df/dx`` from ``evaluate``.
 Method
 ------
 - BDF2 with variable steps (L-stable), backward Euler for (re)starts; Newton's method
-  with the analytic Jacobian and a dense LU with partial pivoting at every iteration.
+  with the analytic Jacobian and an LU at every iteration, in the compiler's
+  fill-reducing order over the nonzeros it predicts (``lu_static``; partial pivoting
+  when a pivot is too small).
 - Local error from the difference between the corrector and an extrapolating
   predictor (Milne's device), weighted per unknown: "slow" unknowns (carrying a part's
   capacitance or inductance) at the asked tolerance, "fast" ones (only stray
@@ -126,7 +128,7 @@ lean = numba.njit(cache=True, _nrt=False)
 #: per Newton iteration on the oscillator scenario, the calls cost a third of the time
 #: (interleaved A/B: 1.35x faster inlined, 1.12x on the mixer). The stamps and the LU
 #: stay calls: inlined, the LU gained nothing and the stamps 4 %, for a cold compile
-#: half as long again (18 s to 28 s on this machine).
+#: more than twice as long (18 s to 41 s on this machine).
 inlined = numba.njit(cache=True, _nrt=False, inline='always')
 
 #: Step-size controller: never grow by more than this per step (keeps BDF2's

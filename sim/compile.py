@@ -62,9 +62,9 @@ class Circuit:
     max_step_seconds: float | None
     param_index: dict[tuple[str, str], int]
     supply_volts: float
+    lu_ptr: np.ndarray
+    lu_idx: np.ndarray
     parts: dict[str, tuple[str, list[int]]] = field(default_factory=dict)
-    lu_ptr: np.ndarray = field(default_factory=lambda: np.zeros(2, np.int64))
-    lu_idx: np.ndarray = field(default_factory=lambda: np.zeros(0, np.uint64))
 
     @property
     def size(self) -> int:

@@ -803,11 +803,11 @@ class _TraceStream:
                 self.job.result()  # the reader failed: stop the simulation with its error
 
     def _pace(self, t: float) -> None:
-        """"auto": at the end of the first chunk run after the imports beside the simulation
-        are done (before, the stepper waits for the GIL each time a chunk ends: on
-        tri-square a chunk took four times as long beside them), read beside the
-        simulation if that chunk was slower than STREAM_ABOVE_SECONDS_PER_SECOND, else
-        drop everything queued and let the render read the finished trace."""
+        """For "auto": at the end of the first chunk run after the imports beside the
+        simulation are done (beside them, the oscillator's chunks take 1.5 to 2.5 times
+        as long), read beside the simulation if that chunk was slower than
+        STREAM_ABOVE_SECONDS_PER_SECOND, else drop everything queued and let the render
+        read the finished trace."""
         now = time.perf_counter()
         if self.mark is None or not self.mark[2]:
             # (mark[2]: the imports were done when the chunk before this one ended)
