@@ -197,3 +197,9 @@ def test_the_elimination_pattern_holds_every_nonzero_and_solves_like_pivoting():
             A, y = J.copy(), b.copy()
             assert k.lu_static(A, y, n, c.lu_ptr, c.lu_idx), path.name
             assert np.allclose(y[1:], expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
+    # a pivot far below the entry under it is refused (the caller then pivots by rows)
+    ptr, idx = elimination_pattern(3, [[1, 2]])
+    tiny = np.array([[0.0, 0.0, 0.0], [0.0, 1e-9, 1.0], [0.0, 1.0, 1.0]])
+    assert not k.lu_static(tiny.copy(), np.ones(3), 3, ptr, idx)
+    b = np.ones(3)
+    assert k.lu_solve(tiny.copy(), b, 3) and np.allclose(b[1:], np.linalg.solve(tiny[1:, 1:], [1, 1]))
