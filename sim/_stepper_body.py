@@ -332,6 +332,8 @@ def newton(xn, t_new, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xr
     conv_prev = -1.0
     for _ in range(max_iter):
         cnt[K_ITERATIONS] += 1
+        # one call site of _assemble (inlined: a second one would double its compiled
+        # code); a small pivot, rare, sends the iteration round again to pivot by rows
         by_rows = False
         while True:
             _assemble(xn, t_new, a0, c, mrow, mcol, mval, P, N, D, f, J, r, v)
@@ -341,7 +343,6 @@ def newton(xn, t_new, a0, c, mrow, mcol, mval, P, N, D, unk, opt, f, J, r, v, xr
             solved = lu_static(J, r, n, lu[0], lu[1])
             if solved:
                 break
-            # a small pivot (rare): assemble again and pivot by rows
             cnt[K_LU_FALLBACK] += 1
             by_rows = True
         if not solved:
@@ -594,7 +595,7 @@ def _loop(st, x, x1, x2, xn, xp, xq, c, v, xlo, f, J, r, mrow, mcol, mval, pf, P
     bisecting = False
     lo = hi = 0.0
     have_lo = False
-    t = h = h1 = h2 = jv = 0.0
+    t = h = h1 = h2 = 0.0
     mode = nh = order = 0
     while True:
         if bisecting:
@@ -621,9 +622,8 @@ def _loop(st, x, x1, x2, xn, xp, xq, c, v, xlo, f, J, r, mrow, mcol, mval, pf, P
             order = 2 if (mode == MODE_NORMAL and nh >= 2) else 1
             # no jump test in recovery (jumps are expected) nor while relaxed after a
             # flip (the fast unknowns' decay is not followed, so the predictor misses it)
-            jv = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
+            jv_try = jump_v if (mode == MODE_NORMAL and st[S_RELAX] == 0.0) else 0.0
             h_try = h
-            jv_try = jv
         outcome, worst = _attempt(order, nh, t, h_try, h1, x, x1, xn, xp, xq, c, mrow, mcol,
                                   mval, pf, P, N, D, unk, opt, auto, f, J, r, v, jv_try, cnt,
                                   st, x2, lu)

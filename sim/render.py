@@ -968,16 +968,17 @@ def wav_path(patch, circuit: Circuit, trace, record: list[str], opts: RenderOpti
              ) -> tuple[np.ndarray, np.ndarray, dict]:
     """The listening signal at the WAV's rate (:func:`listen_audio_volts`), its WAV
     samples and their levels (:func:`sim.audio.to_wav_samples`)."""
-    volts = listen_audio_volts(patch, circuit, trace, record, opts.settle,
-                               opts.settle + opts.seconds, opts.rate_hz)
-    samples, info = audio.to_wav_samples(volts, full_scale_volts=opts.full_scale_volts,
-                                         normalize=opts.normalize, rate_hz=opts.rate_hz)
-    return volts, samples, info
+    return _wav_of(listen_audio_volts(patch, circuit, trace, record, opts.settle,
+                                      opts.settle + opts.seconds, opts.rate_hz), opts)
 
 
 def _streamed_wav_path(stream_job, opts: RenderOptions) -> tuple[np.ndarray, np.ndarray, dict]:
     """:func:`wav_path` from the audio volts read during the simulation (``stream_job``)."""
-    volts = stream_job.result()[3]
+    return _wav_of(stream_job.result()[3], opts)
+
+
+def _wav_of(volts: np.ndarray, opts: RenderOptions) -> tuple[np.ndarray, np.ndarray, dict]:
+    """(volts, WAV samples, their levels) of the listening signal at the WAV's rate."""
     samples, info = audio.to_wav_samples(volts, full_scale_volts=opts.full_scale_volts,
                                          normalize=opts.normalize, rate_hz=opts.rate_hz)
     return volts, samples, info

@@ -38,10 +38,10 @@ class StepOptions:
     flip_volts, flip_slew_volts_per_second: an accepted step in which a fast net moved by
         more than flip_volts, faster than flip_slew, is the regenerative part of a flip:
         backward Euler steps over it. Until the second step of 10 us or more (at the
-        latest 50 us after the flip) the error is measured on the part capacitors' own voltages (held to atol) and on the audible
-        unknowns by their share of an audio sample, not on the nets' nanosecond
-        transient. The flip's timing was decided before, in its slow passage, at full
-        tolerance.
+        latest 50 us after the flip) the error is measured on the part capacitors' own
+        voltages (held to atol) and on the audible unknowns by their share of an audio
+        sample, not on the nets' nanosecond transient. The flip's timing was decided
+        before, in its slow passage, at full tolerance.
     sample_seconds: the audio sample interval that audible unknowns' errors are weighed
         against after a flip (the WAV's; 48 kHz unless the render asks for another).
     newton_rate_floor: Newton's method may stop after one iteration when its remembered

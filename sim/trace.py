@@ -33,13 +33,13 @@ def box_average(t, y, order, base, t_first, rate_hz, count):
 
 
 @numba.njit(cache=True, nogil=True)
-def box_peak(t, y, order, t_first, rate_hz, count):
+def box_peak(t, y, order, base, t_first, rate_hz, count):
     """The largest magnitude of each column's averages of :func:`box_average`, shape (m,)
     (0 when count is 0), without holding the (count, m) averages: the same numbers,
     one pass, no array of a few tens of MB to write and read back."""
     out = np.zeros((1, y.shape[1]))
-    state = _walk_state(t, 0, t_first, rate_hz, y.shape[1])
-    _box_walk(t, y, order, 0, t_first, rate_hz, 0, count + 1, out, 0, True, state)
+    state = _walk_state(t, base, t_first, rate_hz, y.shape[1])
+    _box_walk(t, y, order, base, t_first, rate_hz, 0, count + 1, out, 0, True, state)
     return out[0]
 
 
@@ -191,17 +191,8 @@ class StepTrace:
         grid = first + d * np.arange(count)
         if count <= 0:
             return grid, np.zeros((0, self.values.shape[1] if columns is None else len(columns)))
-        # only the points the walk reads: from three before its first step to one past
-        # its last edge (a WAV path reads a long trace in 1 s windows: copying every
-        # point for each window took a tenth to a third of its reading time)
-        lo = max(0, int(np.searchsorted(self.times, t_start)) - 3)
-        hi = min(self.times.size,
-                 int(np.searchsorted(self.times, t_start + count * d)) + 2)
-        rows = self.values[lo:hi]
-        values = rows if columns is None else rows[:, columns]
-        out = box_average(self.times[lo:hi], np.ascontiguousarray(values), self.order[lo:hi],
-                          lo, first, float(rate_hz), count)
-        return grid, out
+        return grid, box_average(*self._window(t_start, count * d, columns), first,
+                                 float(rate_hz), count)
 
     def uniform_peak(self, rate_hz: float, t_start: float, t_stop: float) -> np.ndarray:
         """The largest magnitude of each column on the grid of :meth:`uniform`, shape (m,):
@@ -211,8 +202,19 @@ class StepTrace:
         count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
         if count <= 0:
             raise ValueError("uniform_peak needs at least one sample")
-        return box_peak(self.times, np.ascontiguousarray(self.values), self.order,
-                        t_start + 0.5 * d, float(rate_hz), count)
+        return box_peak(*self._window(t_start, count * d), t_start + 0.5 * d, float(rate_hz),
+                        count)
+
+    def _window(self, t_start: float, seconds: float, columns: list[int] | None = None):
+        """(times, contiguous values, orders, index of the first) of the points a walk over
+        ``seconds`` from ``t_start`` reads: from three before its first step to one past
+        its last edge. A WAV path reads a long trace in 1 s windows: copying every point
+        for each window took a tenth to a third of its reading time."""
+        lo = max(0, int(np.searchsorted(self.times, t_start)) - 3)
+        hi = min(self.times.size, int(np.searchsorted(self.times, t_start + seconds)) + 2)
+        rows = self.values[lo:hi]
+        values = rows if columns is None else rows[:, columns]
+        return self.times[lo:hi], np.ascontiguousarray(values), self.order[lo:hi], lo
 
 
 class GridReader:
