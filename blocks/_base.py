@@ -10,7 +10,7 @@ Checklist for a new kind (see DEVELOPERS.md for a worked example):
    e.g. ``(("between", 2),)`` or ``(("anode", 1), ("cathode", 1))``.
 2. ``params``: one :class:`Param` per number or choice, each with its unit, default
    and the source of that default.
-3. ``stamp``: a ``numba.njit`` function (plain, *not* ``cache=True``: the generated
+3. ``stamp``: a function compiled by :data:`stamp_jit` (numba, *not* ``cache=True``: the generated
    kernel module that calls it is cached as a whole, keyed on this file's contents;
    a block-level cache would not notice edits to the helpers it calls) with the fixed signature
    ``stamp(x, t, P, N, D, f, G)`` that *adds* the currents flowing out of each node
@@ -56,7 +56,19 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Callable
 
+import numba
 import numpy as np
+
+#: Floating-point freedoms of the compiled stamps and stepper (LLVM's fast-math flags):
+#: a multiply and an add fused into one rounding ("contract") and a division done as a
+#: multiplication by the reciprocal ("arcp"). A result may change in its last bit. NaN
+#: and infinity keep their meaning (the stepper's test for a diverging Newton iteration
+#: needs them: no "nnan", "ninf"), and so does the sign of a zero (no "nsz": the
+#: readers' output current is the stamp's to the bit, sign included). Measured on the
+#: oscillator scenario (interleaved A/B): 5 % faster, 7 % on the two-oscillator mixer.
+FASTMATH = {"contract", "arcp"}
+#: The decorator of every kind's ``stamp`` and of the helpers a stamp calls.
+stamp_jit = numba.njit(fastmath=FASTMATH)
 
 #: Boltzmann constant times 300.15 K over the electron charge, volts.
 #: source: CODATA 2018 values of k and q; kT/q at 27 degC.

@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-import numba
+from blocks._base import stamp_jit
 
 
-@numba.njit
+@stamp_jit
 def branch(f, G, a, b, amps, siemens):
     """Add a current ``amps`` flowing from node ``a`` to node ``b`` through a part whose
     conductance is ``siemens`` = d amps / d(v_a - v_b)."""
@@ -17,7 +17,7 @@ def branch(f, G, a, b, amps, siemens):
     G[b, b] += siemens
 
 
-@numba.njit
+@stamp_jit
 def conductance(f, G, x, a, b, siemens):
     """A linear conductance (S) between nodes ``a`` and ``b``."""
     branch(f, G, a, b, siemens * (x[a] - x[b]), siemens)

@@ -2,12 +2,10 @@
 
 from __future__ import annotations
 
-import numba
-
-from blocks._base import Kind, Param, capacitance_entries
+from blocks._base import Kind, Param, capacitance_entries, stamp_jit
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     # A capacitor draws no current at DC; its C dv/dt lives in the mass matrix.
     return

@@ -7,10 +7,8 @@ far from it).
 
 from __future__ import annotations
 
-import numba
-
 from blocks._stamps import branch, conductance
-from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column
+from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column, stamp_jit
 from blocks._junction import junction
 
 PARAMS = (
@@ -32,7 +30,7 @@ C_IS, C_N, C_RS = column(PARAMS, "saturation_amps"), column(PARAMS, "emission"),
 L_A, L_K, L_J = 0, 1, 2
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, c, j = N[k, L_A], N[k, L_K], N[k, L_J]

@@ -30,9 +30,7 @@ from __future__ import annotations
 
 import math
 
-import numba
-
-from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column
+from blocks._base import THERMAL_VOLTS, Kind, Param, capacitance_entries, column, stamp_jit
 from blocks._junction import channel, junction
 
 FORMS = ("transistor", "behavioural")
@@ -96,7 +94,7 @@ C_ROUT, C_IMAX, C_IDLE = column(PARAMS, "out_ohms"), column(PARAMS, "max_amps"),
 L_IN, L_OUT, L_VDD, L_GND = 0, 1, 2, 3
 
 
-@numba.njit
+@stamp_jit
 def _stamp_behavioural(x, P, k, a, o, s, g_, f, G):
     """Nodes: a input, o output, s vdd, g_ gnd."""
     vin, vout, vdd, vss = x[a], x[o], x[s], x[g_]
@@ -141,7 +139,7 @@ def _stamp_behavioural(x, P, k, a, o, s, g_, f, G):
         G[g_, col] -= ds * d_i[c] - d_i[c] + d_iq[c]
 
 
-@numba.njit
+@stamp_jit
 def _clamps(vin, vdd, vss, isat):
     """The input protection diodes: (amps, siemens) of input -> vdd, then of gnd -> input."""
     i_hi, g_hi = junction(vin - vdd, isat, THERMAL_VOLTS)
@@ -149,7 +147,7 @@ def _clamps(vin, vdd, vss, isat):
     return i_hi, g_hi, i_lo, g_lo
 
 
-@numba.njit
+@stamp_jit
 def out_node_amps(P, k, vin, vout, vdd, vss):
     """Current (A) flowing from the output net into gate k: the stamp's ``f[out]`` term.
 
@@ -177,7 +175,7 @@ def out_node_amps(P, k, vin, vout, vdd, vss):
     return 0.0 - imax * math.tanh((v_t - vout) / (P[k, C_ROUT] * imax))
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     """Both forms, each gate's currents and Jacobian written once per entry.
 

@@ -16,10 +16,8 @@ render.
 
 from __future__ import annotations
 
-import numba
-
 from blocks._stamps import conductance
-from blocks._base import Kind, Param, column
+from blocks._base import Kind, Param, column, stamp_jit
 
 TAPERS = ("lin", "log", "reverse-log")
 
@@ -42,12 +40,12 @@ PARAMS = (
 C_VALUE, C_POS, C_TAPER, C_END = (column(PARAMS, n) for n in ("value", "position", "taper", "end_fraction"))
 
 
-@numba.njit
+@stamp_jit
 def log_fraction(p):
     return (LOG_TAPER_BASE ** p - 1.0) / (LOG_TAPER_BASE - 1.0)
 
 
-@numba.njit
+@stamp_jit
 def track_fraction(position, taper):
     """Fraction of the track between ends[0] and the wiper for ``taper`` code (index in TAPERS)."""
     p = min(1.0, max(0.0, position))
@@ -58,7 +56,7 @@ def track_fraction(position, taper):
     return p
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, b, w = N[k, 0], N[k, 1], N[k, 2]

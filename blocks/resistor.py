@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import numba
-
 from blocks._stamps import conductance
-from blocks._base import Kind, Param
+from blocks._base import Kind, Param, stamp_jit
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         conductance(f, G, x, N[k, 0], N[k, 1], 1.0 / P[k, 0])

@@ -11,11 +11,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 
 from blocks._stamps import branch
-from blocks._base import Kind, Param, column
+from blocks._base import Kind, Param, column, stamp_jit
 
 WAVES = ("sine", "square", "triangle", "wav")
 AFTER_END = ("loop", "silence")
@@ -50,7 +49,7 @@ C_DATA_OFF = len([p for p in PARAMS if not p.text])
 C_DATA_LEN = C_DATA_OFF + 1
 
 
-@numba.njit
+@stamp_jit
 def waveform_volts(t, P, k, D):
     """Open-circuit source voltage at time ``t`` (s) for part row ``k``."""
     t = t - P[k, C_START]
@@ -83,7 +82,7 @@ def waveform_volts(t, P, k, D):
     return amp * s + P[k, C_OFFSET]
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         p, m = N[k, 0], N[k, 1]

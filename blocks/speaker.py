@@ -35,9 +35,7 @@ from __future__ import annotations
 
 import math
 
-import numba
-
-from blocks._base import Kind, Param, capacitance_entries, column
+from blocks._base import Kind, Param, capacitance_entries, column, stamp_jit
 from blocks._stamps import conductance
 from blocks.transformer import inductive_branch
 
@@ -92,7 +90,7 @@ def motional_elements(ohms: float, resonance_hz: float, q_mechanical: float,
             ohms / (omega * q_electrical))
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         a, b, m, ic, il = N[k, L_A], N[k, L_B], N[k, L_M], N[k, L_I], N[k, L_IC]

@@ -7,16 +7,15 @@ smooth step (continuous slope, so the integrator needs no restart at its ends).
 
 from __future__ import annotations
 
-import numba
 import numpy as np
 
 from blocks._stamps import branch
-from blocks._base import Kind, Param
+from blocks._base import Kind, Param, stamp_jit
 
 COL_VOLTS, COL_OHMS, COL_RAMP = 0, 1, 2
 
 
-@numba.njit
+@stamp_jit
 def emf_volts(t, volts, ramp_seconds):
     """Battery EMF at time ``t`` (s): a smooth step 3u^2 - 2u^3 over the power-on ramp."""
     if ramp_seconds <= 0.0 or t >= ramp_seconds:
@@ -27,7 +26,7 @@ def emf_volts(t, volts, ramp_seconds):
     return volts * u * u * (3.0 - 2.0 * u)
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         vdd, gnd = N[k, 0], N[k, 1]

@@ -37,9 +37,7 @@ from __future__ import annotations
 
 import math
 
-import numba
-
-from blocks._base import Kind, Param, column
+from blocks._base import Kind, Param, column, stamp_jit
 from blocks._stamps import conductance
 
 #: Largest coupling factor accepted: k = 1 makes the inductance matrix singular (no
@@ -79,7 +77,7 @@ C_RATIO, C_CORE = column(PARAMS, "ratio"), column(PARAMS, "core_ohms")
 L_P1, L_P2, L_S1, L_S2, L_IP, L_IS = range(6)
 
 
-@numba.njit
+@stamp_jit
 def inductive_branch(x, f, G, a, b, row, ohms):
     """A branch from net ``a`` to net ``b`` whose current is the unknown ``x[row]`` (A),
     through a resistance ``ohms``; its inductance is in the mass matrix, so the branch's
@@ -95,7 +93,7 @@ def inductive_branch(x, f, G, a, b, row, ohms):
     G[row, b] += 1.0
 
 
-@numba.njit
+@stamp_jit
 def stamp(x, t, P, N, D, f, G):
     for k in range(P.shape[0]):
         # the rows read L1 di_p/dt + M di_s/dt + R1 i_p - v_p = 0 and its twin: the

@@ -53,6 +53,8 @@ import math
 import numpy as np
 import numba
 
+from blocks._base import FASTMATH
+
 # option vector ``opt``
 O_T_END = 0
 O_RTOL = 1
@@ -120,8 +122,9 @@ N_JUMPED = 2  # an iterate (the last one included) left the predictor by more th
 #: increment and decrement. Measured on the oscillator scenario: those took half the
 #: stepper's time (4.6x real time with them, 8.6x without). ``run`` and
 #: ``evaluate_rows`` allocate their work arrays and keep the runtime; ``run`` hands them
-#: to the lean ``_loop`` at once.
-lean = numba.njit(cache=True, _nrt=False)
+#: to the lean ``_loop`` at once. FASTMATH: the arithmetic freedoms the stamps have
+#: (blocks/_base.py), which keep NaN and infinity for Newton's divergence test.
+lean = numba.njit(cache=True, _nrt=False, fastmath=FASTMATH)
 #: The functions of one step are inlined into ``_loop`` (numba's own inlining, before
 #: LLVM sees the code). A call passes every array as its pointer, shape and strides, and
 #: the step's calls carry some thirty arrays (the per-kind views among them): measured
@@ -129,7 +132,7 @@ lean = numba.njit(cache=True, _nrt=False)
 #: (interleaved A/B: 1.35x faster inlined, 1.12x on the mixer). The stamps and the LU
 #: stay calls: inlined, the LU gained nothing and the stamps 4 %, for a cold compile
 #: more than twice as long (18 s to 41 s on this machine).
-inlined = numba.njit(cache=True, _nrt=False, inline='always')
+inlined = numba.njit(cache=True, _nrt=False, inline='always', fastmath=FASTMATH)
 
 #: Step-size controller: never grow by more than this per step (keeps BDF2's
 #: variable-step formula well inside its zero-stability bound of 1 + sqrt(2)).
