@@ -255,6 +255,7 @@ KIND = Kind(
     stamp=stamp,
     mass=mass,
     resolve=resolve,
+    inline=True,
     models={
         "typical": {},
         "behavioural": {"form": "behavioural"},
