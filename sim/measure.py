@@ -69,6 +69,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
+from sim.audio import fft_length
 from sim.notes import note_of
 
 #: Half-width of the Schmitt-trigger band as a fraction of the peak-to-peak voltage.
@@ -241,12 +242,10 @@ def _yin_period(x: np.ndarray, tau_min: int, tau_max: int) -> float | None:
     window = length - tau_max - 1     # lags up to tau_max + 1 stay inside
     if window < tau_max or tau_max <= tau_min:
         return None
-    import scipy.fft  # here: a render imports it in a thread while the simulation runs
-
-    nfft = scipy.fft.next_fast_len(length + window, real=True)
-    spectrum_a = scipy.fft.rfft(seg[:window], nfft)
-    spectrum_b = scipy.fft.rfft(seg, nfft)
-    corr = scipy.fft.irfft(np.conj(spectrum_a) * spectrum_b, nfft)[:tau_max + 2]
+    nfft = fft_length(length + window)
+    spectrum_a = np.fft.rfft(seg[:window], nfft)
+    spectrum_b = np.fft.rfft(seg, nfft)
+    corr = np.fft.irfft(np.conj(spectrum_a) * spectrum_b, nfft)[:tau_max + 2]
     energy = np.concatenate(([0.0], np.cumsum(seg * seg)))
     lags = np.arange(tau_max + 2)
     diff = energy[window] + (energy[lags + window] - energy[lags]) - 2.0 * corr

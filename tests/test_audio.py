@@ -9,8 +9,9 @@ import pytest
 import soundfile
 
 from sim.audio import (LOUD_RMS_DBFS, PASSBAND_FRACTION, STOPBAND_ATTENUATION_DB,
-                       antialias_taps, clip_to_full_scale, decimate, first_play_warning,
-                       kaiser_lowpass_taps, remove_dc, to_wav_samples, write_wav)
+                       antialias_taps, clip_to_full_scale, decimate, fft_length,
+                       first_play_warning, kaiser_lowpass_taps, remove_dc, to_wav_samples,
+                       write_wav)
 from sim.fileio import atomic_path, write_json, write_text
 from sim.plots import spectrum_plot, waveform_plot
 
@@ -281,3 +282,13 @@ def test_plots_write_non_empty_pngs_and_no_temporary_files(tmp_path):
     for name in names:
         data = (tmp_path / name).read_bytes()
         assert len(data) > 1000 and data[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_fft_lengths_are_the_smallest_regular_numbers_at_or_above_n():
+    # source: scipy.fft.next_fast_len(n, real=True), the general-purpose library's
+    # search over the same lengths (prime factors 2, 3 and 5 only)
+    import scipy.fft
+
+    rng = np.random.default_rng(11)
+    for n in [*range(1, 3000), *rng.integers(3000, 50_000_000, 300).tolist()]:
+        assert fft_length(n) == scipy.fft.next_fast_len(n, real=True), n

@@ -212,3 +212,31 @@ def test_the_elimination_pattern_holds_every_nonzero_and_solves_like_pivoting():
     assert not k.lu_static(tiny.copy(), np.ones(3), 3, ptr, idx)
     b = np.ones(3)
     assert k.lu_solve(tiny.copy(), b, 3) and np.allclose(b[1:], np.linalg.solve(tiny[1:, 1:], [1, 1]))
+
+
+def test_the_kernel_starts_numba_without_scipy_linalg_and_leaves_it_importable():
+    # common practice: a start-up shortcut must not change what works afterwards. The
+    # kernel loads and steps with scipy.linalg never imported (numba's BLAS probe
+    # answered "not there", sim/kernel.py), then a compiled np.dot (which imports BLAS
+    # itself) and a plain import of scipy.linalg work as usual. In a fresh interpreter:
+    # this one imported scipy.linalg long ago.
+    import subprocess
+    import sys
+
+    code = "\n".join([
+        "import sys, numba, numpy as np",
+        "from sim.compile import compile_patch",
+        "from sim.patch import load_patch",
+        "from sim.simulate import simulate",
+        f"trace = simulate(compile_patch(load_patch({str(OSCILLATOR)!r})), 0.002, ['sq'])",
+        "assert trace.times.size > 10",
+        "assert 'scipy.linalg' not in sys.modules, 'scipy.linalg imported'",
+        "dot = numba.njit(lambda a, b: np.dot(a, b))",
+        "assert dot(np.ones(3), np.arange(3.0)) == 3.0",
+        "import scipy.linalg",
+        "assert scipy.linalg.det(np.eye(2)) == 1.0",
+        "print('ok')",
+    ])
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=Path(__file__).resolve().parents[1], timeout=300)
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
