@@ -945,8 +945,6 @@ def warm_up(wav: bool, plots_too: bool, patch=None, record: list[str] | None = N
     wav: also the WAV path's; plots_too: also import matplotlib (renders that write);
     patch and record (the recorded names): also the gates' output currents.
     """
-    import scipy.fft  # noqa: F401  (measure's period estimate, audio's drift filter)
-
     tiny = StepTrace(names=["v"], times=np.array([0.0, 0.5, 1.0]), values=np.zeros((3, 1)),
                      order=np.array([1, 1, 2], dtype=np.int64))
     tiny.uniform(4.0, 0.0, 1.0)

@@ -149,3 +149,21 @@ def test_every_command_is_listed_even_when_only_one_is_built():
     commands = cli._parser("render")._subparsers._group_actions[0].choices
     assert set(commands) == {"render", "kinds", *cli.COMMAND_HELP}
     assert cli._command_of(["--help"]) is None and cli._command_of(["sweep", "x"]) == "sweep"
+
+
+@pytest.mark.parametrize(("command", "collecting"), [(["kinds"], True),
+                                                    (["check", "scenarios/tri-square.yaml"], False)])
+def test_the_program_collects_garbage_only_for_commands_that_render_many_times(command,
+                                                                               collecting):
+    # common practice (Python's gc module): a short command whose imports make no
+    # garbage runs with the collector off; the others get it back once imported
+    code = ("import gc, sys\n"
+            f"sys.argv = ['halfrail', *{command!r}]\n"
+            "from sim.program import main\n"
+            "status = main()\n"
+            "print(gc.isenabled(), gc.get_freeze_count() > 1000)\n"
+            "sys.exit(status)\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=ROOT, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.splitlines()[-1] == f"{collecting} True"
