@@ -7,8 +7,12 @@ generated kernel".
 
 from blocks.inverter import out_node_amps as _gate_out_node_amps
 
+# compiled into the loop below, not called: a call passes the parameter rows as pointer,
+# shape and strides at every gate and point (measured: the loop 1.3 times as fast)
+_gate_out_node_amps = numba.njit(inline="always", fastmath=FASTMATH)(_gate_out_node_amps.py_func)
 
-@numba.njit(cache=True, nogil=True)
+
+@numba.njit(cache=True, nogil=True, fastmath=FASTMATH)
 def gate_currents(values, first, vdd_col, in_cols, out_cols, rows):
     """Current (A) out of each gate's output into its net, sourcing positive, at the
     recorded points ``values[first:]``; shape (m, g).
