@@ -130,9 +130,9 @@ lean = numba.njit(cache=True, _nrt=False, fastmath=FASTMATH)
 #: the step's calls carry some thirty arrays (the per-kind views among them): measured
 #: per Newton iteration on the oscillator scenario, the calls cost a third of the time
 #: (interleaved A/B: 1.35x faster inlined, 1.12x on the mixer). The LU stays a call
-#: (inlined, it gained nothing), and so do the stamps except a kind's that asks to be
-#: inlined (``Kind.inline``, the inverter's): all of them inlined gained 4 % for a cold
-#: compile more than twice as long (18 s to 41 s on this machine).
+#: (inlined, it gained nothing), and so do the stamps, except those of a kind that asks
+#: to be inlined (``Kind.inline``: the inverter): all of them inlined gained 4 % for a
+#: cold compile more than twice as long (18 s to 41 s on this machine).
 inlined = numba.njit(cache=True, _nrt=False, inline='always', fastmath=FASTMATH)
 
 #: Step-size controller: never grow by more than this per step (keeps BDF2's

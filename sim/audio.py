@@ -73,7 +73,8 @@ def fft_length(n: int) -> int:
     """The smallest length at or above ``n`` whose only prime factors are 2, 3 and 5: an
     FFT of it runs near its n log n speed, where a length with a large prime factor can
     take many times longer (source: the mixed-radix Cooley-Tukey FFT; the lengths are
-    the regular numbers, OEIS A051037)."""
+    the 5-smooth numbers, OEIS A051037 from memory; tests/test_audio.py checks them
+    against scipy.fft.next_fast_len)."""
     if n <= 1:
         return 1
     best = 1 << (int(n) - 1).bit_length()  # the power of two at or above n

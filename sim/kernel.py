@@ -136,8 +136,8 @@ def _start_numba() -> None:
     what it pulls in took 0.25 s of the 0.45 s before a render's first step (measured).
     No compiled function here uses those two, and np.dot and np.linalg, if one ever
     does, import BLAS themselves when they are compiled. So the probe is answered "not
-    there" by a None in sys.modules for the while of the import (Python's way to make
-    an import fail at once), and the entry is removed after it: a later
+    there" by a None in sys.modules while that import runs (Python's way to make an
+    import fail at once), and the entry is removed after it: a later
     ``import scipy.linalg`` works as usual (tests/test_stepper.py checks both).
     """
     if _NUMBA_BLAS_PROBE in sys.modules or _BLAS_MODULE in sys.modules:

@@ -44,9 +44,9 @@ def box_peak(t, y, order, base, t_first, rate_hz, count):
 
 
 #: Slots of the state of :func:`_box_walk` (a float array, then for each column the
-#: running sum of the current sample and the step's three polynomial coefficients): where the walk
-#: stands, so a walk over a trace still being computed can stop at the end of what is
-#: known and go on from there with the same arithmetic.
+#: running sum of the current sample and the step's three polynomial coefficients):
+#: where the walk stands, so a walk over a trace still being computed can stop at the
+#: end of what is known and go on from there with the same arithmetic.
 W_CURSOR, W_KSEG, W_SEG, W_T1 = range(4)
 W_SIZE = 4
 
