@@ -239,3 +239,25 @@ def test_the_gates_output_currents_are_the_same_to_the_bit_in_one_compiled_pass(
                                          OPTS.settle + OPTS.seconds, rate)
     _, averages = fast.uniform(rate, OPTS.settle, OPTS.settle + OPTS.seconds)
     assert np.array_equal(peaks, np.max(np.abs(averages), axis=0))
+
+
+def test_the_progress_line_redraws_in_place_and_ends_full(capsys):
+    # common practice: a terminal progress line returns the carriage at each redraw and
+    # ends with a newline; the bar is full exactly at the end
+    line = render_module.ProgressLine("osc", 4.0)
+    for t in (0.0, 1.0, 4.0):
+        line.show(t)
+    line.close()
+    err = capsys.readouterr().err
+    draws = err.split("\r")[1:]
+    assert len(draws) == 3 and err.endswith("\n")
+    assert draws[0].startswith("osc:   0% [" + "." * line.WIDTH + "] 0.00/4.00")
+    assert draws[1].startswith("osc:  25% [" + "#" * (line.WIDTH // 4))
+    assert draws[2] == "osc: 100% [" + "#" * line.WIDTH + "] 4.00/4.00 s simulated\n"
+
+
+def test_a_render_into_a_log_writes_no_progress_line(tmp_path, capsys):
+    # common practice: redraws are for terminals; a captured standard error gets none
+    long = RenderOptions(seconds=3.0, settle=0.05, progress=True)
+    render(load_patch(SCENARIOS / "tri-square.yaml"), tmp_path, long, write=False)
+    assert "simulated" not in capsys.readouterr().err
