@@ -260,3 +260,22 @@ def test_duty_counts_the_time_above_mid_on_straight_lines_between_samples(volts)
     # 0.5 -> 0.5 -> 1 -> 0.5 rests on the level (not above) for the first gap, then is
     # above for the other two: 2 of 3 samples' time either way.
     assert duty_cycle(np.array(volts), 0.5, 0.0, 3.0) == pytest.approx(2.0 / 3.0, abs=1e-15)
+
+
+def test_the_schmitt_events_are_the_first_samples_above_after_one_below():
+    # common practice (a Schmitt trigger's definition), written out with whole arrays:
+    # each sample's state (+1 above high, -1 below low), and an event where a +1 follows
+    # a -1 among the samples that have one
+    from sim.measure import _rising_events
+
+    rng = np.random.default_rng(8)
+    for size in (2, 50, 20_000):
+        x = np.cumsum(rng.standard_normal(size))
+        low, high = np.percentile(x, 40), np.percentile(x, 60)
+        state = np.zeros(x.size, dtype=np.int8)
+        state[x > high] = 1
+        state[x < low] = -1
+        where = np.flatnonzero(state)
+        levels = state[where]
+        expected = where[1:][(levels[1:] == 1) & (levels[:-1] == -1)]
+        assert np.array_equal(_rising_events(x, low, high), expected), size
