@@ -417,6 +417,13 @@ def _time_above(x, mid, start, end, lo_i, hi_i):
     return out
 
 
+def load_compiled() -> None:
+    """Load this module's compiled helpers from numba's disk cache (a render does it in a
+    thread while it simulates, rather than at its first measure)."""
+    duty_cycle(np.array([0.0, 1.0, 0.0]), 0.5, 0.0, 2.0)
+    _rising_events(np.array([0.0, 1.0]), 0.25, 0.75)
+
+
 def harmonic_amplitudes(x: np.ndarray, rate_hz: float, freq_hz: float, start: float,
                         end: float, count: int = N_HARMONICS) -> list[float | None]:
     """Amplitudes (volts, peak) of harmonics 1..``count`` of ``freq_hz``.

@@ -977,7 +977,7 @@ def warm_up(wav: bool, plots_too: bool, patch=None, record: list[str] | None = N
         at_rest = StepTrace(names=list(record), times=tiny.times,
                             values=np.zeros((3, len(record))), order=tiny.order)
         gate_peak_amps(patch, at_rest, 0.0, 1.0, 4.0)
-    measure.duty_cycle(np.array([0.0, 1.0, 0.0]), 0.5, 0.0, 2.0)
+    measure.load_compiled()
     if wav:
         import soundfile  # noqa: F401
 
