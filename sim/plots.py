@@ -62,9 +62,16 @@ def _margins(fig: Figure, top_in: float, panels: int = 1, gap_in: float = 0.0) -
                         hspace=gap_in / panel_in)
 
 
+#: zlib level of the PNG files: 1 (fastest) instead of the encoder's 6. Measured on a
+#: spectrum plot: 25 ms of its 0.15 s went to compressing at 6; the files come out about
+#: 15 % larger (60 to 70 kB), still far below the WAV beside them.
+PNG_COMPRESS_LEVEL = 1
+
+
 def _save(fig: Figure, path: str | os.PathLike) -> None:
     with atomic_path(path) as temp:
-        fig.savefig(temp, format="png", dpi=DPI, facecolor="white")
+        fig.savefig(temp, format="png", dpi=DPI, facecolor="white",
+                    pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
 
 
 def envelope(x: np.ndarray, y: np.ndarray, max_points: int = MAX_PLOT_POINTS,
