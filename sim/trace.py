@@ -24,9 +24,12 @@ def box_average(t, y, order, base, t_first, rate_hz, count):
     t: (K,) accepted times, increasing; y: (K, m) values; order: (K,) interpolation
     order on the interval ending at each point; the trace's points from index ``base``
     on (at least the two before the grid's first step, and one at or after its end).
-    Returns (count, m). The grid must lie inside [t[0], t[-1]]. See :func:`_box_walk`.
+    Returns (count, m), each column contiguous (column-major: the walk writes one column
+    after the other, and the measures read one signal at a time, about a fifth faster
+    than from every m-th number). The grid must lie inside [t[0], t[-1]]. See
+    :func:`_box_walk`.
     """
-    out = np.zeros((count, y.shape[1]))
+    out = np.zeros((y.shape[1], count)).T
     state = _walk_state(t, base, t_first, rate_hz, y.shape[1])
     _box_walk(t, y, order, base, t_first, rate_hz, 0, count + 1, out, 0, False, state)
     return out
@@ -250,7 +253,8 @@ class GridReader:
         y = values if self.columns is None else values[:, self.columns]
         if self.t is None:
             self.base, self.t, self.y, self.order = first_index, times, y, orders
-            self.out = np.zeros((1 if self.peak else max(self.count, 0), y.shape[1]))
+            # column-major, as box_average's
+            self.out = np.zeros((y.shape[1], 1 if self.peak else max(self.count, 0))).T
         else:
             if first_index != self.base + self.t.size:
                 raise ValueError(f"GridReader fed point {first_index}, expected "
