@@ -18,31 +18,34 @@ import numpy as np
 
 
 @numba.njit(cache=True, nogil=True)
-def box_average(t, y, order, base, t_first, rate_hz, count):
-    """Averages of y over [T_i - d/2, T_i + d/2], T_i = t_first + i d, d = 1/rate_hz.
+def box_average(t, y, cols, order, base, t_first, rate_hz, count):
+    """Averages of y's columns ``cols`` over [T_i - d/2, T_i + d/2], T_i = t_first + i d,
+    d = 1/rate_hz.
 
-    t: (K,) accepted times, increasing; y: (K, m) values; order: (K,) interpolation
-    order on the interval ending at each point; the trace's points from index ``base``
-    on (at least the two before the grid's first step, and one at or after its end).
+    t: (K,) accepted times, increasing; y: (K, r) values, read in place (a copy of the
+    columns read cost as much as the walk); cols: (m,) the columns read; order: (K,)
+    interpolation order on the interval ending at each point; the trace's points from
+    index ``base`` on (at least the two before the grid's first step, and one at or
+    after its end).
     Returns (count, m), each column contiguous (column-major: the walk writes one column
     after the other, and the measures read one signal at a time, about a fifth faster
     than from every m-th number). The grid must lie inside [t[0], t[-1]]. See
     :func:`_box_walk`.
     """
-    out = np.zeros((y.shape[1], count)).T
-    state = _walk_state(t, base, t_first, rate_hz, y.shape[1])
-    _box_walk(t, y, order, base, t_first, rate_hz, 0, count + 1, out, 0, False, state)
+    out = np.zeros((cols.shape[0], count)).T
+    state = _walk_state(t, base, t_first, rate_hz, cols.shape[0])
+    _box_walk(t, y, cols, order, base, t_first, rate_hz, 0, count + 1, out, 0, False, state)
     return out
 
 
 @numba.njit(cache=True, nogil=True)
-def box_peak(t, y, order, base, t_first, rate_hz, count):
+def box_peak(t, y, cols, order, base, t_first, rate_hz, count):
     """The largest magnitude of each column's averages of :func:`box_average`, shape (m,)
     (0 when count is 0), without holding the (count, m) averages: the same numbers,
     one pass, no array of a few tens of MB to write and read back."""
-    out = np.zeros((1, y.shape[1]))
-    state = _walk_state(t, base, t_first, rate_hz, y.shape[1])
-    _box_walk(t, y, order, base, t_first, rate_hz, 0, count + 1, out, 0, True, state)
+    out = np.zeros((1, cols.shape[0]))
+    state = _walk_state(t, base, t_first, rate_hz, cols.shape[0])
+    _box_walk(t, y, cols, order, base, t_first, rate_hz, 0, count + 1, out, 0, True, state)
     return out[0]
 
 
@@ -71,10 +74,11 @@ def _walk_state(t, base, t_first, rate_hz, m):
 
 
 @numba.njit(cache=True, nogil=True)
-def _box_walk(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak, state):
+def _box_walk(t, y, cols, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak,
+              state):
     """The walk of :func:`box_average` over the steps, edges j_from to j_to - 1 (edge j
-    closes sample j - 1, from 0 to count): writes each average into
-    out[j - 1 - out_row0, :], or with ``peak`` keeps the largest magnitude in out[0, :].
+    closes sample j - 1, from 0 to count): writes the averages of y's column cols[c] into
+    out[j - 1 - out_row0, c], or with ``peak`` keeps the largest magnitude in out[0, c].
     t, y, order hold the trace's points from index ``base`` on (from the step before
     the walk's, see ``state``); ``state`` (:func:`_walk_state`) is read and left where
     the walk stops, so a walk cut into parts gives the same numbers to the bit.
@@ -92,7 +96,7 @@ def _box_walk(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, 
     whichever columns are read together. Releases the GIL (a reader thread can run beside
     the simulation).
     """
-    m = y.shape[1]
+    m = cols.shape[0]
     cursor = state[W_CURSOR]
     kseg = int(state[W_KSEG])
     seg = int(state[W_SEG])
@@ -101,8 +105,8 @@ def _box_walk(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, 
         at = W_SIZE + 4 * c
         acc, c0, c1, c2 = state[at], state[at + 1], state[at + 2], state[at + 3]
         cursor_c, kseg_c, seg_c, t1_c, acc, c0, c1, c2 = _walk_column(
-            t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak, c,
-            cursor, kseg, seg, t1, acc, c0, c1, c2)
+            t, y, cols[c], order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak,
+            c, cursor, kseg, seg, t1, acc, c0, c1, c2)
         state[at], state[at + 1], state[at + 2], state[at + 3] = acc, c0, c1, c2
         if c == m - 1:
             cursor, kseg, seg, t1 = cursor_c, kseg_c, seg_c, t1_c
@@ -113,10 +117,11 @@ def _box_walk(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, 
 
 
 @numba.njit(cache=True, nogil=True)
-def _walk_column(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak, c,
-                 cursor, kseg, seg, t1, acc, c0, c1, c2):
-    """Column c of :func:`_box_walk`, from the walk's position (cursor, kseg, seg, t1)
-    and the column's running sum and step coefficients; returns them where it stops."""
+def _walk_column(t, y, col, order, base, t_first, rate_hz, j_from, j_to, out, out_row0, peak,
+                 c, cursor, kseg, seg, t1, acc, c0, c1, c2):
+    """Output column c of :func:`_box_walk` (y's column ``col``), from the walk's position
+    (cursor, kseg, seg, t1) and the column's running sum and step coefficients; returns
+    them where it stops."""
     d = 1.0 / rate_hz
     last = base + t.shape[0] - 1
     third = 1.0 / 3.0
@@ -131,12 +136,12 @@ def _walk_column(t, y, order, base, t_first, rate_hz, j_from, j_to, out, out_row
                     k1 = kseg - 1 - base
                     t1 = t[k1]
                     h2 = t2 - t1
-                    y1 = y[k1, c]
-                    d21 = (y[k1 + 1, c] - y1) / h2 if h2 > 0.0 else 0.0
+                    y1 = y[k1, col]
+                    d21 = (y[k1 + 1, col] - y1) / h2 if h2 > 0.0 else 0.0
                     c0 = y1
                     if order[kseg - base] == 2 and kseg >= 2 and t1 > t[k1 - 1]:
                         t0 = t[k1 - 1]
-                        g = (d21 - (y1 - y[k1 - 1, c]) / (t1 - t0)) / (t2 - t0)
+                        g = (d21 - (y1 - y[k1 - 1, col]) / (t1 - t0)) / (t2 - t0)
                         c1 = d21 - g * h2
                         c2 = g
                     else:
@@ -186,7 +191,9 @@ class StepTrace:
         d = 1.0 / rate_hz
         first = t_start + 0.5 * d
         count = int(np.floor((t_stop - t_start) * rate_hz + 1e-9))
-        grid = first + d * np.arange(count)
+        grid = np.arange(count, dtype=np.float64)  # in place: each new array of this length
+        grid *= d                                   # costs its page faults
+        grid += first
         if count <= 0:
             return grid, np.zeros((0, self.values.shape[1] if columns is None else len(columns)))
         return grid, box_average(*self._window(t_start, count * d, columns), first,
@@ -204,15 +211,16 @@ class StepTrace:
                         count)
 
     def _window(self, t_start: float, seconds: float, columns: list[int] | None = None):
-        """(times, contiguous values, orders, index of the first) of the points a walk over
-        ``seconds`` from ``t_start`` reads: from three before its first step to one past
-        its last edge. A WAV path reads a long trace in 1 s windows: copying every point
-        for each window took a tenth to a third of its reading time."""
+        """(times, values, columns to read, orders, index of the first) of the points a
+        walk over ``seconds`` from ``t_start`` reads: from three before its first step to
+        one past its last edge. Views, not copies: a WAV path reads a long trace in 1 s
+        windows, and copying every point for each window took a tenth to a third of its
+        reading time; copying the columns read of one long window, as long as the walk."""
         lo = max(0, int(np.searchsorted(self.times, t_start)) - 3)
         hi = min(self.times.size, int(np.searchsorted(self.times, t_start + seconds)) + 2)
-        rows = self.values[lo:hi]
-        values = rows if columns is None else rows[:, columns]
-        return self.times[lo:hi], np.ascontiguousarray(values), self.order[lo:hi], lo
+        cols = np.arange(self.values.shape[1]) if columns is None else np.asarray(columns)
+        return (self.times[lo:hi], np.ascontiguousarray(self.values[lo:hi]),
+                cols.astype(np.int64), self.order[lo:hi], lo)
 
 
 class GridReader:
@@ -302,7 +310,8 @@ class GridReader:
             while edges > self.edges and self.t_first + (edges - 1 - 0.5) * d > t[-1]:
                 edges -= 1
         if edges > self.edges:
-            _box_walk(t, np.ascontiguousarray(self.y), self.order, self.base, self.t_first,
+            y = np.ascontiguousarray(self.y)
+            _box_walk(t, y, np.arange(y.shape[1]), self.order, self.base, self.t_first,
                       self.rate_hz, self.edges, edges, self.out, 0, self.peak, self.state)
             self.edges = edges
         self._keep_from(int(self.state[W_KSEG]) - 2)
