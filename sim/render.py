@@ -1076,7 +1076,7 @@ def _after_simulation(pool, patch, as_given, automation, circuit, trace, record,
         peaks_job = pool.submit(gate_peak_amps, patch, trace, t_start, t_stop, fine_rate)
         times, y = trace.uniform(fine_rate, t_start, t_stop, [record.index(n) for n in names])
     values = {name: y[:, j] for j, name in enumerate(names)}
-    values[GROUND] = np.zeros_like(times)
+    values[GROUND] = np.zeros(times.shape)  # (pages not touched until read)
     warnings = supply_warnings(float(patch.supply.values["volts"]))
     for a in automation:
         if (a.ref, a.param) == ("supply", "volts"):
