@@ -86,7 +86,8 @@ NEWTON_STEP_FRACTION = 0.25
 COUNTER_NAMES = ("steps", "rejected_error", "rejected_newton", "newton_iterations", "events",
                  "event_trials", "lu_fallbacks")
 
-#: Initial capacity of the accepted-point buffer per chunk.
+#: Room for accepted points the stepper gets per call: a call that fills it returns, and
+#: the next call goes on from there.
 POINTS_PER_CHUNK = 1 << 16
 
 
@@ -173,14 +174,13 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
     pf = circuit.pf.copy()
     rec = np.array([circuit.index[name] for name in record], dtype=np.int64)
     cnt = np.zeros(k.K_SIZE, dtype=np.int64)
-    times = [np.zeros(1)]
-    values = [np.zeros((1, len(rec)))]
-    orders = [np.ones(1, dtype=np.int64)]
-    out_t = np.zeros(POINTS_PER_CHUNK)
-    out_y = np.zeros((POINTS_PER_CHUNK, len(rec)))
-    out_o = np.zeros(POINTS_PER_CHUNK, dtype=np.int64)
+    # The stepper writes its points straight into the trace's arrays, which grow as
+    # needed (sized after the first chunk for the whole run): copying each chunk out and
+    # joining the copies at the end wrote the whole trace twice more, into fresh memory
+    # whose page faults cost as much as the copies.
+    buf = _TraceBuffer(len(rec))
     started = time.perf_counter()
-    sent = 0  # pieces of the lists above already handed to on_chunk
+    sent = 0  # points already handed to on_chunk
     t_chunk = 0.0
     while st[k.S_T] < seconds * (1 - 1e-14):
         t_chunk = min(seconds, st[k.S_T] + opts.chunk_seconds)
@@ -192,12 +192,11 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
         # without).
         opt[k.O_LAND] = 1.0 if t_chunk >= seconds else 0.0
         while True:
+            out_t, out_y, out_o = buf.room(POINTS_PER_CHUNK, st[k.S_T], seconds)
             got, status = k.run(st, x, x1, x2, circuit.mass, pf, circuit.nf, circuit.tab,
                                 circuit.df, unk, opt, auto, rec, out_t, out_y, out_o, cnt,
                                 circuit.lu_ptr, circuit.lu_idx)
-            times.append(out_t[:got].copy())
-            values.append(out_y[:got].copy())
-            orders.append(out_o[:got].copy())
+            buf.size += got
             if status == 2:
                 worst = circuit.names[int(st[k.S_FAIL_INDEX])]
                 raise SolverError(
@@ -209,16 +208,52 @@ def simulate(circuit: Circuit, seconds: float, record: list[str], opts: StepOpti
             if status == 0:
                 break
         if on_chunk is not None:
-            pieces = (times[sent:], values[sent:], orders[sent:])
-            sent = len(times)
-            on_chunk(*(p[0] if len(p) == 1 else np.concatenate(p) for p in pieces))
+            # views: the points up to buf.size are never written again, and a buffer
+            # that grows leaves them in the old one
+            on_chunk(*buf.points(sent, buf.size))
+            sent = buf.size
         if progress is not None:
             progress(float(st[k.S_T]))
     counters = dict(zip(COUNTER_NAMES, (int(c) for c in cnt)))
     counters["wall_seconds"] = time.perf_counter() - started
-    return StepTrace(names=list(record), times=np.concatenate(times),
-                     values=np.concatenate(values), order=np.concatenate(orders),
+    times, values, orders = buf.points(0, buf.size)
+    return StepTrace(names=list(record), times=times, values=values, order=orders,
                      counters=counters)
+
+
+class _TraceBuffer:
+    """The arrays :func:`simulate` records its points into, with room to spare; point 0
+    is the power-on point (t = 0, every unknown at 0 V, order 1)."""
+
+    #: Room for this many more points than the run so far predicts (the step count per
+    #: simulated second drifts a little as a patch settles).
+    MARGIN = 1.05
+
+    def __init__(self, width: int):
+        self.t = np.zeros(1 + POINTS_PER_CHUNK)
+        self.y = np.zeros((1 + POINTS_PER_CHUNK, width))
+        self.o = np.ones(1 + POINTS_PER_CHUNK, dtype=np.int64)
+        self.size = 1
+
+    def room(self, points: int, t_now: float, t_end: float):
+        """Views for the next ``points`` points; the arrays grow first if short, to what
+        the rate so far predicts for the whole run."""
+        need = self.size + points
+        if need > self.t.shape[0]:
+            rate = self.size / t_now if t_now > 0.0 else 0.0
+            grown = max(need, int(self.MARGIN * rate * t_end) + points,
+                        int(1.5 * self.t.shape[0]))
+            for name in ("t", "y", "o"):
+                old = getattr(self, name)
+                new = np.empty((grown, *old.shape[1:]), dtype=old.dtype)
+                new[:self.size] = old[:self.size]
+                setattr(self, name, new)
+        end = self.size + points
+        return self.t[self.size:end], self.y[self.size:end], self.o[self.size:end]
+
+    def points(self, first: int, last: int):
+        """(times, values, orders) of points first to last - 1 (views)."""
+        return self.t[first:last], self.y[first:last], self.o[first:last]
 
 
 def simulate_reference(circuit: Circuit, seconds: float, record: list[str], rtol: float = 1e-9,
