@@ -240,3 +240,28 @@ def test_the_kernel_starts_numba_without_scipy_linalg_and_leaves_it_importable()
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           cwd=Path(__file__).resolve().parents[1], timeout=300)
     assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
+
+
+def test_the_trace_buffer_keeps_every_point_as_it_grows():
+    # common practice: a growing buffer keeps what it holds, and views handed out before
+    # it grew still read the same points. Rates far off the first estimate force growth.
+    from sim.simulate import POINTS_PER_CHUNK, _TraceBuffer
+
+    buf = _TraceBuffer(2)
+    handed = []
+    for chunk, got in enumerate([10, POINTS_PER_CHUNK, 3, POINTS_PER_CHUNK, POINTS_PER_CHUNK]):
+        t, y, o = buf.room(POINTS_PER_CHUNK, 1e-3 * chunk, 1.0)
+        start = buf.size
+        t[:got] = np.arange(start, start + got)
+        y[:got] = np.arange(start, start + got)[:, None] * [1.0, -1.0]
+        o[:got] = 2
+        buf.size += got
+        handed.append((start, buf.points(start, buf.size)))
+    times, values, orders = buf.points(0, buf.size)
+    assert times.size == 1 + 10 + 3 + 3 * POINTS_PER_CHUNK
+    assert np.array_equal(times, np.arange(times.size)) and times[0] == 0.0
+    assert np.array_equal(values[:, 0], times) and np.array_equal(values[:, 1], -times)
+    assert orders[0] == 1 and np.all(orders[1:] == 2)
+    for start, (t, y, o) in handed:
+        assert np.array_equal(t, np.arange(start, start + t.size))
+        assert np.array_equal(y[:, 1], -t)
