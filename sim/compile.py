@@ -215,7 +215,8 @@ def compile_patch(patch) -> Circuit:
     pf = np.array([v for row in pf_rows for v in row], dtype=np.float64)
     nf = np.array([v for row in nf_rows for v in row], dtype=np.uint64)
     df = np.concatenate(d_parts) if d_parts else np.zeros(0)
-    lu_ptr, lu_idx = elimination_pattern(n, [local for rows in per_kind.values() for _, local in rows])
+    lu_ptr, lu_idx = elimination_pattern(
+        n, [local for rows in per_kind.values() for _, local in rows])
     return Circuit(
         names=names, index={nm: i for i, nm in enumerate(names)}, mass=mass,
         pf=pf if pf.size else np.zeros(1), nf=nf if nf.size else np.zeros(1, np.uint64),

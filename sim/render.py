@@ -49,7 +49,7 @@ AUDIO_CHUNK_SECONDS = 1.0
 FULL_SCALE_VOLTS = 10.0
 
 #: Threads a render runs beside its own. While the simulation runs, one imports what the
-#: rest of the render needs (plots, audio files, FFTs) and loads its compiled readers,
+#: rest of the render needs (plots, audio files) and loads its compiled readers,
 #: then, for a slow simulation, reads the finished part of the trace
 #: (STREAM_DURING_SIMULATION: the report's signals, the gates' output currents, the WAV
 #: path). After the simulation the rest of that reading, the WAV samples and the
@@ -69,12 +69,13 @@ STREAM_DURING_SIMULATION = "auto"
 
 #: With STREAM_DURING_SIMULATION "auto", the trace is read beside the simulation when a
 #: chunk run after the render's imports took more than this many wall seconds per
-#: simulated second. The readers take about 0.1 s per second of audio on one core
-#: (tri-square, 10 s: the report's signals 0.25 s, the gates' currents and peaks 0.33 s,
-#: the WAV path 0.5 s). Measured on whole 10 s renders, reading beside the simulation
-#: against after it: tri-square (the stepper at 0.06 to 0.07 s per second) 3.32 s
-#: against 2.94 s; the mixer (0.17 to 0.23) 4.62 against 4.87 s; step-down (0.3 to 0.37)
-#: 6.6 against 7.7 s. The threshold lies between, with room for this machine's noise.
+#: simulated second. Set when the readers took about 0.1 s per second of audio on one
+#: core, from whole 10 s renders, reading beside the simulation against after it:
+#: tri-square (the stepper at 0.06 to 0.07 s per second) 3.32 s against 2.94 s; the
+#: mixer (0.17 to 0.23) 4.62 against 4.87 s; step-down (0.3 to 0.37) 6.6 against 7.7 s.
+#: The readers now take about 0.04 s per second of audio; reading beside the
+#: tri-square's simulation always was still 5 % slower than this rule (8 interleaved
+#: rounds).
 STREAM_ABOVE_SECONDS_PER_SECOND = 0.12
 
 #: The simulation hands its finished points to that thread in batches of at least this
