@@ -5,7 +5,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench clean
+.PHONY: demo test bench clean bytecode
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -13,13 +13,20 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e '.[test]'
 	touch $(STAMP)
 
-demo: $(STAMP)
+# Our sources' bytecode, written here because Python does not write it where
+# PYTHONDONTWRITEBYTECODE is set (as on this machine and its CI) and an editable install leaves
+# it to the first run: without it every start compiles sim/ and blocks/ again (0.06 s
+# of a render's 0.33 s of imports, measured). Only changed sources are compiled again.
+bytecode: $(STAMP)
+	$(BIN)/python -m compileall -q sim blocks
+
+demo: bytecode
 	$(BIN)/halfrail render scenarios/tri-square.yaml --out renders
 
-test: $(STAMP)
+test: bytecode
 	$(BIN)/python -m pytest -q
 
-bench: $(STAMP)
+bench: bytecode
 	$(BIN)/python bench/run.py
 
 clean:

@@ -242,6 +242,28 @@ def test_the_kernel_starts_numba_without_scipy_linalg_and_leaves_it_importable()
     assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
 
 
+def test_the_generated_kernel_module_is_started_from_its_bytecode_even_where_python_writes_none(
+        tmp_path):
+    # source: the Python documentation of PYTHONDONTWRITEBYTECODE (no .pyc written on
+    # import) and of py_compile (writes one regardless). A fresh cache folder: the first
+    # process writes the module and its bytecode, the second starts from that bytecode.
+    import importlib.util
+    import os
+    import subprocess
+    import sys
+
+    env = {**os.environ, "HALFRAIL_CACHE": str(tmp_path), "PYTHONDONTWRITEBYTECODE": "1"}
+    code = "from sim import kernel; print(kernel.load().__file__)"
+    runs = [subprocess.run([sys.executable, *flags, "-c", code], capture_output=True,
+                           text=True, env=env, cwd=Path(__file__).resolve().parents[1],
+                           timeout=300) for flags in ((), ("-v",))]
+    assert all(run.returncode == 0 for run in runs), runs[0].stderr[-2000:]
+    module = runs[0].stdout.strip()
+    bytecode = importlib.util.cache_from_source(module)
+    assert Path(module).parent == tmp_path and Path(bytecode).is_file()
+    assert f"code object from '{bytecode}'" in runs[1].stderr
+
+
 def test_the_trace_buffer_keeps_every_point_as_it_grows():
     # common practice: a growing buffer keeps what it holds, and views handed out before
     # it grew still read the same points. Rates far off the first estimate force growth.
