@@ -122,33 +122,42 @@ def _digest(source: str) -> str:
     return h.hexdigest()[:16]
 
 
-#: The module numba imports with its library of implementations, whose import looks
-#: for BLAS by importing scipy.linalg (see :func:`_start_numba`).
-_NUMBA_BLAS_PROBE = "numba.np.arraymath"
-_BLAS_MODULE = "scipy.linalg.cython_blas"
+#: numba modules imported with a probe answered "not there": (numba's module, the module
+#: it probes for, why). The first load or compile of any compiled function imports both
+#: numba modules (numba's library of implementations and its typing of cffi objects).
+_NUMBA_PROBES = (
+    # numba's library of implementations looks for BLAS by importing scipy.linalg, only
+    # to choose how np.convolve and np.correlate multiply inside compiled code: scipy.linalg
+    # with what it pulls in took 0.25 s of the 0.45 s before a render's first step. No
+    # compiled function here uses those two; np.dot and np.linalg, if one ever does,
+    # import BLAS themselves when they are compiled.
+    ("numba.np.arraymath", "scipy.linalg.cython_blas", "BLAS"),
+    # numba's typing of cffi functions builds a cffi parser (cffi.FFI(), which imports
+    # pycparser and builds its tables): 0.05 s of the 0.15 to 0.19 s numba takes to set
+    # up its first load (measured). No compiled function here calls through cffi; numba
+    # then types as where cffi is not installed. soundfile, the one user of cffi here,
+    # loads its compiled module through _cffi_backend and needs no parser.
+    ("numba.core.typing.cffi_utils", "cffi", "cffi"),
+)
 
 
 def _start_numba() -> None:
-    """Import numba's library of implementations (the first load or compile of any
-    function does) without its probe for BLAS.
+    """Import the numba modules of :data:`_NUMBA_PROBES` without their probes.
 
-    That import checks whether BLAS is present by importing scipy.linalg, only to choose
-    how np.convolve and np.correlate multiply inside compiled code; scipy.linalg with
-    what it pulls in took 0.25 s of the 0.45 s before a render's first step (measured).
-    No compiled function here uses those two, and np.dot and np.linalg, if one ever
-    does, import BLAS themselves when they are compiled. So the probe is answered "not
-    there" by a None in sys.modules while that import runs (Python's way to make an
-    import fail at once), and the entry is removed after it: a later
-    ``import scipy.linalg`` works as usual (tests/test_stepper.py checks both).
+    Each probe is answered "not there" by a None in sys.modules while that numba module
+    is imported (Python's way to make an import fail at once), and the entry is removed
+    after it: a later ``import scipy.linalg`` or ``import cffi`` works as usual
+    (tests/test_stepper.py checks both). A probe already imported is left alone.
     """
-    if _NUMBA_BLAS_PROBE in sys.modules or _BLAS_MODULE in sys.modules:
-        return
-    sys.modules[_BLAS_MODULE] = None
-    try:
-        importlib.import_module(_NUMBA_BLAS_PROBE)
-    finally:
-        if sys.modules.get(_BLAS_MODULE, 0) is None:
-            del sys.modules[_BLAS_MODULE]
+    for module, probe, _ in _NUMBA_PROBES:
+        if module in sys.modules or probe in sys.modules:
+            continue
+        sys.modules[probe] = None
+        try:
+            importlib.import_module(module)
+        finally:
+            if sys.modules.get(probe, 0) is None:
+                del sys.modules[probe]
 
 
 def _write_bytecode(path: Path) -> None:

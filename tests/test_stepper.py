@@ -214,12 +214,13 @@ def test_the_elimination_pattern_holds_every_nonzero_and_solves_like_pivoting():
     assert k.lu_solve(tiny.copy(), b, 3) and np.allclose(b[1:], np.linalg.solve(tiny[1:, 1:], [1, 1]))
 
 
-def test_the_kernel_starts_numba_without_scipy_linalg_and_leaves_it_importable():
+def test_the_kernel_starts_numba_without_scipy_linalg_or_cffi_and_leaves_them_importable():
     # common practice: a start-up shortcut must not change what works afterwards. The
-    # kernel loads and steps with scipy.linalg never imported (numba's BLAS probe
+    # kernel loads and steps with scipy.linalg and cffi never imported (numba's probes
     # answered "not there", sim/kernel.py), then a compiled np.dot (which imports BLAS
-    # itself) and a plain import of scipy.linalg work as usual. In a fresh interpreter:
-    # this one imported scipy.linalg long ago.
+    # itself), a plain import of scipy.linalg, a cffi parser and a WAV written through
+    # soundfile (cffi's user here) work as usual. In a fresh interpreter: this one
+    # imported them long ago.
     import subprocess
     import sys
 
@@ -230,11 +231,17 @@ def test_the_kernel_starts_numba_without_scipy_linalg_and_leaves_it_importable()
         "from sim.simulate import simulate",
         f"trace = simulate(compile_patch(load_patch({str(OSCILLATOR)!r})), 0.002, ['sq'])",
         "assert trace.times.size > 10",
-        "assert 'scipy.linalg' not in sys.modules, 'scipy.linalg imported'",
+        "for name in ('scipy.linalg', 'cffi', 'pycparser'):",
+        "    assert name not in sys.modules, name + ' imported'",
         "dot = numba.njit(lambda a, b: np.dot(a, b))",
         "assert dot(np.ones(3), np.arange(3.0)) == 3.0",
         "import scipy.linalg",
         "assert scipy.linalg.det(np.eye(2)) == 1.0",
+        "import cffi, io, soundfile",
+        "assert cffi.FFI().sizeof('int') == 4",
+        "wav = io.BytesIO()",
+        "soundfile.write(wav, np.zeros(8), 8000, format='WAV')",
+        "assert soundfile.info(io.BytesIO(wav.getvalue())).frames == 8",
         "print('ok')",
     ])
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
