@@ -18,7 +18,7 @@ CAUTION = ("Caution: start playback at a low volume, especially on headphones. T
 
 
 #: One-line help of the commands whose options are only added when that command runs
-#: (their defaults live in modules that import matplotlib or scipy.optimize).
+#: (their defaults live in modules that import Pillow or scipy.optimize).
 COMMAND_HELP = {
     "diff": "compare two variants: pitch shift, level change, A-then-B WAV",
     "play": "render in memory and play through the sound card (starts low)",
@@ -492,12 +492,13 @@ def _sheet(args) -> int:
 SWITCH_INTERVAL_SECONDS = 0.0005
 
 #: Commands run with the garbage collector off from start to end (as the program). The
-#: program's imports (numpy, numba, numba's library, matplotlib: some 200 000 objects,
-#: hardly any garbage among them) made the collector walk its young objects again and
-#: again: with it off they took 0.63 to 0.70 s instead of 0.80 to 1.1 s, and a whole 10 s
-#: render 5 % less (interleaved runs). One render leaves little garbage in cycles (its
-#: figures); the commands that render many times (sweep, spread, tune, diff) collect as
-#: usual once their imports are done.
+#: program's imports (numpy, numba, numba's library, the kernel and the plots: some
+#: 115 000 objects, hardly any garbage among them) make the collector walk its young
+#: objects again and again: with it off they took 0.40 to 0.45 s instead of 0.47 to
+#: 0.52 s (measured again after the plots left their library, which had made it 0.63 to
+#: 0.70 s against 0.80 to 1.1 s). One render leaves little garbage in cycles; the
+#: commands that render many times (sweep, spread, tune, diff) collect as usual once
+#: their imports are done.
 UNCOLLECTED_COMMANDS = ("render", "check", "sheet")
 
 

@@ -30,6 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from sim import audio, plots
+from sim.canvas import Pen
 from sim.errors import PatchError
 from sim.fileio import write_json
 from sim.patch import Patch, load_patch, parse_override
@@ -46,9 +47,10 @@ CENTS_PER_OCTAVE = 1200.0
 GAP_SECONDS = 0.5
 
 #: Line styles of A and B in the overlay plot: A solid, B dashed, so the two read
-#: apart where they overlap and in greyscale print.
-A_STYLE = {"color": plots.TRACE_COLOURS[0], "linestyle": "-", "linewidth": 1.1}
-B_STYLE = {"color": plots.TRACE_COLOURS[1], "linestyle": "--", "linewidth": 1.1}
+#: apart where they overlap and in greyscale print; 1.5 pixels wide, a little wider than
+#: a single trace, so the dashes of B read as dashes.
+A_STYLE = Pen(plots.TRACE_COLOURS[0], 1.5)
+B_STYLE = Pen(plots.TRACE_COLOURS[1], 1.5, "dashed")
 
 #: Sides of a comparison, in the order the WAV plays them.
 SIDES = ("a", "b")
@@ -192,12 +194,12 @@ def ab_samples(a: Rendered, b: Rendered, opts: RenderOptions) -> tuple[np.ndarra
 
 def overlay_plot(path: str | os.PathLike, times_s, traces: dict, title: str,
                  subtitle: str | None = None) -> None:
-    """One subplot per net with A and B overlaid over a shared time axis in ms.
+    """One panel per net with A and B overlaid over a shared time axis in ms.
 
     ``times_s``: shape ``(n,)`` seconds (both sides share it); ``traces``: net ->
     ``(volts_a, volts_b, label_a, label_b)`` with volts of shape ``(n,)``.  Sized and
     styled like :func:`sim.plots.waveform_plot` (A solid, B dashed, a legend above
-    each subplot so it never hides a trace).
+    each panel so it never hides a trace).
     """
     if not traces:
         raise ValueError("overlay_plot needs at least one net")

@@ -29,7 +29,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it onto ``path`` on success.
 
     The temporary name is hidden (leading dot) and keeps the destination's suffix,
-    so writers that choose the format from the suffix (soundfile, matplotlib) still
+    so writers that choose the format from the suffix (soundfile) still
     do the right thing.  If the ``with`` body raises, the temporary file is removed
     and the exception propagates; ``path`` is left as it was.  The folder must exist.
     """

@@ -11,7 +11,6 @@ import math
 import os
 import queue
 import sys
-import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -967,7 +966,7 @@ def warm_up(wav: bool, plots_too: bool, patch=None, record: list[str] | None = N
     """Import what a render needs after its simulation and load its compiled readers
     from numba's disk cache (run in a thread while the simulation runs).
 
-    wav: also the WAV path's; plots_too: also import matplotlib (renders that write);
+    wav: also the WAV path's; plots_too: also import the plots (Pillow; renders that write);
     patch and record (the recorded names): also the gates' output currents.
     """
     tiny = StepTrace(names=["v"], times=np.array([0.0, 0.5, 1.0]), values=np.zeros((3, 1)),
@@ -1104,7 +1103,7 @@ def _after_simulation(pool, patch, as_given, automation, circuit, trace, record,
         base = Path(out_dir) / patch.name
         Path(out_dir).mkdir(parents=True, exist_ok=True)
         wav_file_job = pool.submit(_write_wav, base.with_suffix(".wav"), wav_job, opts.rate_hz)
-        warm_job.result()  # matplotlib imported
+        warm_job.result()  # the plots imported
         spectrum_job = pool.submit(_spectrum_plot, base, patch, opts, listen_report, wav_job)
         # this thread would only wait for the gates and the WAV path: it draws meanwhile
         png = _waveform_plot(base, patch, opts, times, values, listen_fine, listen_report,
@@ -1154,10 +1153,9 @@ def _write_wav(path: Path, wav_job, rate_hz: int) -> Path:
     return path
 
 
-#: Held while drawing a plot: matplotlib's font cache is not safe for two threads drawing
-#: at once, and a render draws its waveform in its own thread and its spectrum in a pool
-#: thread.
-_DRAWING = threading.Lock()
+# A render draws its waveform in its own thread and its spectrum in a pool thread, at
+# the same time and with no lock: each figure (sim.canvas.Sheet) has its own image and
+# its own font objects, and Pillow's FreeType calls run holding the GIL.
 
 
 def _waveform_plot(base: Path, patch, opts: RenderOptions, times, values, listen_fine,
@@ -1173,10 +1171,9 @@ def _waveform_plot(base: Path, patch, opts: RenderOptions, times, values, listen
     shown = times < times[0] + span
     subtitle = (f"supply {patch.supply.values['volts']:g} V, {supply['mean_ma']:.2f} mA mean; "
                 f"from {opts.settle * 1e3:g} ms after power-on")
-    with _DRAWING:
-        plots.waveform_plot(png, times[shown] - opts.settle,
-                            {net: values[net][shown] for net in patch.probes} or
-                            {listen_label(patch): listen_fine[shown]}, title, subtitle)
+    plots.waveform_plot(png, times[shown] - opts.settle,
+                        {net: values[net][shown] for net in patch.probes} or
+                        {listen_label(patch): listen_fine[shown]}, title, subtitle)
     return png
 
 
@@ -1187,10 +1184,9 @@ def _spectrum_plot(base: Path, patch, opts: RenderOptions, listen_report, wav_jo
 
     spectrum = Path(f"{base}.spectrum.png")
     listen_audio = wav_job.result()[0]
-    with _DRAWING:
-        plots.spectrum_plot(spectrum, listen_audio, opts.rate_hz, listen_report["freq_hz"],
-                            f"{patch.name}: spectrum at {listen_label(patch)}, "
-                            f"{_pitch_text(listen_report)}")
+    plots.spectrum_plot(spectrum, listen_audio, opts.rate_hz, listen_report["freq_hz"],
+                        f"{patch.name}: spectrum at {listen_label(patch)}, "
+                        f"{_pitch_text(listen_report)}")
     return spectrum
 
 

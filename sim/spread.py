@@ -46,10 +46,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from matplotlib.ticker import MaxNLocator
 
 import blocks
 from sim import kernel, plots
+from sim.canvas import Fill, Pen, Scale, padded
 from sim.compile import compile_patch
 from sim.errors import HalfrailError, UsageError
 from sim.fileio import write_json
@@ -419,30 +419,51 @@ def spread(patch, runs: int = DEFAULT_RUNS, seed: int = DEFAULT_SEED, probe: str
 # output
 
 
+#: The histogram's percentile lines and their dashes: the median solid, the 5th and
+#: 95th percentiles dotted (the ends of the middle 90 %), 1.5 pixels wide.
+PERCENTILE_LINES = {"p5": "dotted", "median": "solid", "p95": "dotted"}
+PERCENTILE_WIDTH_PX = 1.5
+#: The histogram's axes reach this fraction of the data's span beyond it (bars and lines
+#: stay clear of the axis lines).
+HISTOGRAM_MARGIN = 0.05
+#: Shade of the "within" window: a pale tint of the bars' blue, behind the grid.
+WINDOW_COLOUR = "#e8eef5"
+#: White outlines part neighbouring bars (1 pixel).
+BAR_EDGE_PEN = Pen("white", 1.0)
+
+
 def histogram_plot(path: str | os.PathLike, cents: np.ndarray, report: dict) -> None:
-    """Histogram of the builds' pitch in cents from nominal, with the percentiles and window."""
+    """Histogram of the builds' pitch in cents from nominal (``cents``: shape ``(runs,)``,
+    NaN for a build without a pitch), with the percentiles and the window shaded."""
     pitched = cents[np.isfinite(cents)]
-    fig = plots._new_figure(plots.HEIGHT_BASE_IN + 2 * plots.HEIGHT_PER_TRACE_IN)
-    ax = fig.add_subplot(1, 1, 1)
     window = report["within"]["window_cents"]
-    ax.axvspan(-window, window, color="#e8eef5", zorder=0,
-               label=f"within +-{window:g} cents: {report['within']['fraction']:.0%}")
+    stats = report["cents"]
+    counts, edges = np.zeros(0), np.zeros(0)
     if pitched.size:
-        bins = max(MIN_BINS, round(math.sqrt(pitched.size)))
-        ax.hist(pitched, bins=bins, color=plots.TRACE_COLOURS[0], edgecolor="white", zorder=2)
-        stats = report["cents"]
-        for name, style in (("p5", ":"), ("median", "-"), ("p95", ":")):
-            ax.axvline(stats[name], color=plots.TRACE_COLOURS[1], linestyle=style, zorder=3,
-                       label=f"{name} {stats[name]:+.1f} cents")
-    ax.set_xlabel("pitch relative to the nominal build (cents)")
-    ax.set_ylabel("builds")
-    ax.yaxis.set_major_locator(MaxNLocator(integer=True))
-    ax.grid(True, color="#dddddd", linewidth=0.6)
-    ax.legend(loc="upper right", fontsize="small")
-    fig.suptitle(f"{report['patch']}: {report['runs']} builds drawn from the tolerances "
-                 f"(seed {report['seed']}) at {report['probe']}; nominal "
-                 f"{report['nominal_hz']:.2f} Hz")
-    plots._save(fig, path)
+        counts, edges = np.histogram(pitched, bins=max(MIN_BINS, round(math.sqrt(pitched.size))))
+    low, high = plots.finite_range(edges, [-window, window],
+                                   [stats[name] for name in PERCENTILE_LINES if pitched.size])
+    sheet = plots.new_sheet(plots.HEIGHT_BASE_IN + 2 * plots.HEIGHT_PER_TRACE_IN)
+    (box,) = plots.panel_boxes(sheet, plots.MARGIN_TITLES_IN + plots.LEGEND_ROW_IN)
+    panel = sheet.panel(*box, x=Scale(*padded(low, high, HISTOGRAM_MARGIN)),
+                        y=Scale(0.0, max(1.0, float(counts.max(initial=0.0))) *
+                                (1.0 + HISTOGRAM_MARGIN), integer=True))
+    span = Fill(WINDOW_COLOUR)
+    panel.vspan(-window, window, span.colour)
+    panel.grid(plots.GRID_PEN)
+    entries = [(f"within +-{window:g} cents: {report['within']['fraction']:.0%}", span)]
+    if pitched.size:
+        panel.bars(edges, counts, plots.TRACE_COLOURS[0], edge=BAR_EDGE_PEN)
+        for name, dash in PERCENTILE_LINES.items():
+            pen = Pen(plots.TRACE_COLOURS[1], PERCENTILE_WIDTH_PX, dash)
+            panel.vline(stats[name], pen)
+            entries.append((f"{name} {stats[name]:+.1f} cents", pen))
+    panel.axes("pitch relative to the nominal build (cents)", "builds")
+    panel.legend(entries)
+    plots.titles(sheet, f"{report['patch']}: {report['runs']} builds drawn from the tolerances "
+                        f"(seed {report['seed']}) at {report['probe']}; nominal "
+                        f"{report['nominal_hz']:.2f} Hz")
+    plots.save(sheet, path)
 
 
 def write_spread(result: SpreadResult, out_dir: str | os.PathLike = "renders") -> list[Path]:

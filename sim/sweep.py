@@ -31,12 +31,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
 from sim import audio, plots
+from sim.canvas import Marker, Pen, Scale, padded
 from sim.errors import PatchError, UsageError
-from sim.fileio import atomic_path, write_json, write_text
+from sim.fileio import write_json, write_text
 from sim.notes import A4_HZ, A4_NUMBER, CENTS_PER_SEMITONE, SEMITONES_PER_OCTAVE, note_name
 from sim.render import RenderOptions, listen_label, numeric_param
 from sim.runner import AUDIO_KEY, LOCAL, Job, probe_measures, run_jobs
@@ -79,7 +78,7 @@ MAX_NOTE_TICKS = 14
 NOTE_TICK_SETS = (range(12), (0, 2, 4, 5, 7, 9, 11), (0, 5), (0,))
 
 #: A sweep of at most this many steps gets a tick at each swept value; longer ones
-#: get matplotlib's own ticks (a dozen labels still fit across the 10-inch plot).
+#: get evenly spaced ticks (a dozen labels still fit across the 10-inch plot).
 MAX_VALUE_TICKS = 12
 
 #: Height of the sweep plot in inches (two panels).
@@ -421,62 +420,71 @@ def note_ticks(low_hz: float, high_hz: float) -> list[tuple[float, str]]:
             for n in picked]
 
 
+#: The sweep plot's panels: pitch above current, 3 to 1 in height, 0.2 inch apart;
+#: 0.75 inch on the right for the note names and their title.
+SWEEP_PANEL_RATIOS = (3.0, 1.0)
+SWEEP_PANEL_GAP_IN = 0.2
+SWEEP_MARGIN_RIGHT_IN = 0.75
+#: Space beyond the swept values and the currents, as a fraction of their span (of its
+#: logarithm on a log axis): the first and last markers stay clear of the axis lines.
+SWEEP_MARGIN = 0.05
+#: Pitch axis of a sweep in which no step has a steady pitch: an octave either side of
+#: A4 (440 Hz, ISO 16), a musical range for the empty axis.
+NO_PITCH_AXIS_HZ = (220.0, 880.0)
+#: Lines and markers: 1.7-pixel lines (a sweep has few points, a bolder line reads
+#: better), filled circles at the steps, grey lines at the notes under the data.
+SWEEP_LINE_WIDTH_PX = 1.7
+PITCH_MARKER_PX = 5.6
+CURRENT_MARKER_PX = 4.2
+NOTE_LINE_PEN = Pen("#e4e4e4", 0.8)
+#: Steps without a steady pitch: a dark red x on the bottom of the pitch panel.
+NO_PITCH_COLOUR = "#a00000"
+NO_PITCH_MARKER_PX = 8.0
+
+
 def sweep_plot(path: str | os.PathLike, report: dict, title: str) -> None:
     """Pitch (Hz, log axis, note names on the right) and supply current (mA) against the
     swept value; steps without a steady pitch are marked along the bottom."""
-    from matplotlib.ticker import FuncFormatter, NullLocator
-
     points = report["points"]
     unit = report["unit"]
-    x = np.array([p["value"] for p in points])
+    x = np.array([p["value"] for p in points], dtype=np.float64)
     freq = np.array([p["freq_hz"] if p["freq_hz"] else np.nan for p in points])
-    fig = Figure(figsize=(plots.FIGURE_WIDTH_IN, SWEEP_PLOT_HEIGHT_IN), dpi=plots.DPI,
-                 facecolor="white")
-    FigureCanvasAgg(fig)
-    top, bottom = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": (3, 1)})
-    colour, current_colour = plots.TRACE_COLOURS[0], plots.TRACE_COLOURS[1]
-    top.set_yscale("log")
+    supply = np.array([p["supply_ma"] for p in points], dtype=np.float64)
+    log_x = report["range"]["spacing"] == "log"
+    sheet = plots.new_sheet(SWEEP_PLOT_HEIGHT_IN)
+    top_box, bottom_box = plots.panel_boxes(
+        sheet, plots.MARGIN_TITLES_IN + plots.LEGEND_ROW_IN, 2, SWEEP_PANEL_GAP_IN,
+        right_in=SWEEP_MARGIN_RIGHT_IN, ratios=SWEEP_PANEL_RATIOS)
+    x_axis = Scale(*padded(*plots.finite_range(x), SWEEP_MARGIN, log=log_x), log=log_x,
+                   ticks=x if len(x) <= MAX_VALUE_TICKS else None,
+                   format=(lambda v: format_quantity(v, unit)) if unit else (lambda v: f"{v:.4g}"))
     pitched = np.isfinite(freq)
+    low, high = NO_PITCH_AXIS_HZ
     if np.any(pitched):
-        top.plot(x, freq, color=colour, linewidth=1.2, marker="o", markersize=4)
         margin = 2.0 ** (PITCH_MARGIN_CENTS / CENTS_PER_OCTAVE)
         low, high = np.nanmin(freq) / margin, np.nanmax(freq) * margin
-        top.set_ylim(low, high)
-        ticks = note_ticks(low, high)
-        notes = top.secondary_yaxis("right")
-        notes.yaxis.set_minor_locator(NullLocator())
-        notes.set_yticks([hz for hz, _ in ticks], labels=[name for _, name in ticks])
-        notes.set_ylabel("note")
-        for hz, _ in ticks:
-            top.axhline(hz, color="#e4e4e4", linewidth=0.6, zorder=0)
+    top = sheet.panel(*top_box, x=x_axis, y=Scale(low, high, log=True, format=lambda v: f"{v:g}"))
+    colour, current_colour = plots.TRACE_COLOURS[0], plots.TRACE_COLOURS[1]
+    notes = note_ticks(low, high)
+    for hz, _ in notes:
+        top.hline(hz, NOTE_LINE_PEN)
+    top.grid(plots.GRID_PEN, y=False)
+    if np.any(pitched):
+        top.line(x, freq, Pen(colour, SWEEP_LINE_WIDTH_PX))
+        top.markers(x, freq, Marker(colour, size=PITCH_MARKER_PX))
+    top.axes(y_title=f"pitch at {report['probe']} (Hz)", x_labels=False)
+    top.right_axis(notes, "note")
     if not np.all(pitched):
-        top.plot(x[~pitched], np.full(int(np.sum(~pitched)), top.get_ylim()[0]), linestyle="none",
-                 marker="x", color="#a00000", clip_on=False, label="no steady pitch")
-        top.legend(loc="lower right", bbox_to_anchor=(1.0, 1.0), frameon=False, fontsize=8)
-    top.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-    top.yaxis.set_minor_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
-    top.set_ylabel(f"pitch at {report['probe']} (Hz)")
-    bottom.plot(x, [p["supply_ma"] for p in points], color=current_colour, linewidth=1.2,
-                marker="o", markersize=3)
-    bottom.set_ylabel("supply (mA)")
-    if report["range"]["spacing"] == "log":
-        bottom.set_xscale("log")
-    if len(x) <= MAX_VALUE_TICKS:
-        bottom.set_xticks(x)
-        bottom.xaxis.set_minor_locator(NullLocator())
-    bottom.xaxis.set_major_formatter(FuncFormatter(
-        lambda v, _: format_quantity(v, unit) if unit else f"{v:.4g}"))
-    bottom.set_xlabel(report["param"])
-    for ax in (top, bottom):
-        ax.grid(True, which="major", axis="x", color="#d0d0d0", linewidth=0.6)
-        ax.spines["top"].set_visible(False)
-    bottom.grid(True, axis="y", color="#d0d0d0", linewidth=0.6)
-    bottom.spines["right"].set_visible(False)
+        unpitched = Marker(NO_PITCH_COLOUR, "x", NO_PITCH_MARKER_PX)
+        top.markers(x[~pitched], np.full(int(np.sum(~pitched)), low), unpitched, clip=False)
+        top.legend([("no steady pitch", unpitched)])
+    bottom = sheet.panel(*bottom_box, x=x_axis,
+                         y=Scale(*padded(*plots.finite_range(supply), SWEEP_MARGIN)))
+    bottom.grid(plots.GRID_PEN)
+    bottom.line(x, supply, Pen(current_colour, SWEEP_LINE_WIDTH_PX))
+    bottom.markers(x, supply, Marker(current_colour, size=CURRENT_MARKER_PX))
+    bottom.axes(report["param"], "supply (mA)")
     subtitle = [f"{report['seconds']:g} s per step after {report['settle_seconds']:g} s settling"]
     subtitle += summary_lines({k: v for k, v in report.items() if k == "drift"})
-    fig.suptitle(title, fontsize=13, fontweight="bold", x=0.01, ha="left")
-    fig.text(0.01, 1.0 - 0.42 / fig.get_figheight(), "; ".join(subtitle), fontsize=9,
-             color="#444444", ha="left", va="top")
-    fig.tight_layout(rect=(0.0, 0.0, 1.0, 1.0 - 0.5 / fig.get_figheight()))
-    with atomic_path(path) as temp:
-        fig.savefig(temp, format="png", dpi=plots.DPI, facecolor="white")
+    plots.titles(sheet, title, "; ".join(subtitle))
+    plots.save(sheet, path)

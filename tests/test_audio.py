@@ -3,15 +3,18 @@
 import io
 import json
 import math
+import struct
 
 import numpy as np
 import pytest
 import soundfile
+from PIL import Image
 
 from sim.audio import (LOUD_RMS_DBFS, PASSBAND_FRACTION, STOPBAND_ATTENUATION_DB,
                        antialias_taps, clip_to_full_scale, decimate, fft_length,
                        first_play_warning, kaiser_lowpass_taps, remove_dc, to_wav_samples,
                        write_wav)
+from sim import plots
 from sim.fileio import atomic_path, write_json, write_text
 from sim.plots import spectrum_plot, waveform_plot
 
@@ -269,7 +272,23 @@ def test_a_failed_write_keeps_the_old_file_and_leaves_no_temporary(tmp_path):
     assert [p.name for p in tmp_path.iterdir()] == ["report.txt"]
 
 
-def test_plots_write_non_empty_pngs_and_no_temporary_files(tmp_path):
+def png_size(data: bytes) -> tuple[int, int]:
+    """Width and height from a PNG's header."""
+    # source: ISO/IEC 15948:2004 (PNG), 5.2 signature, 11.2.2 IHDR (the first chunk:
+    # 4-byte length, "IHDR", then width and height as big-endian 32-bit integers)
+    assert data[:8] == b"\x89PNG\r\n\x1a\n" and data[12:16] == b"IHDR"
+    return struct.unpack(">II", data[16:24])
+
+
+def rows_with_colour(path, colour: str) -> np.ndarray:
+    """Rows of the PNG at ``path`` holding pixels of exactly ``colour`` (``#rrggbb``)."""
+    with Image.open(path) as image:
+        pixels = np.asarray(image.convert("RGB"))
+    wanted = np.array([int(colour[i:i + 2], 16) for i in (1, 3, 5)])
+    return np.flatnonzero(np.all(pixels == wanted, axis=-1).any(axis=1))
+
+
+def test_plots_write_pngs_of_their_size_with_the_traces_in_their_panels(tmp_path):
     rate_hz = 96000
     x = sine(440.0, 0.05, rate_hz)
     t = np.arange(x.size) / rate_hz
@@ -278,10 +297,19 @@ def test_plots_write_non_empty_pngs_and_no_temporary_files(tmp_path):
     spectrum_plot(tmp_path / "s.png", np.sign(x), rate_hz, 440.0, "drone: n3")
     spectrum_plot(tmp_path / "s2.png", np.sign(x), rate_hz, None, "drone: n3")
     names = sorted(p.name for p in tmp_path.iterdir())
-    assert names == ["s.png", "s2.png", "w.png"]
+    assert names == ["s.png", "s2.png", "w.png"]  # no temporary file left
+    width = round(plots.FIGURE_WIDTH_IN * plots.DPI)
+    two_panels = round((plots.HEIGHT_BASE_IN + 2 * plots.HEIGHT_PER_TRACE_IN) * plots.DPI)
     for name in names:
-        data = (tmp_path / name).read_bytes()
-        assert len(data) > 1000 and data[:8] == b"\x89PNG\r\n\x1a\n"
+        assert png_size((tmp_path / name).read_bytes()) == (width, two_panels)
+    # one panel per trace, top to bottom in the order given, each in its own colour
+    first = rows_with_colour(tmp_path / "w.png", plots.TRACE_COLOURS[0])
+    second = rows_with_colour(tmp_path / "w.png", plots.TRACE_COLOURS[1])
+    assert first.size and second.size and first.max() < second.min()
+    # the harmonics are numbered only when the fundamental is known
+    assert rows_with_colour(tmp_path / "s.png", plots.TRACE_COLOURS[0]).size
+    assert rows_with_colour(tmp_path / "s.png", plots.TRACE_COLOURS[1]).size
+    assert not rows_with_colour(tmp_path / "s2.png", plots.TRACE_COLOURS[1]).size
 
 
 def test_fft_lengths_are_the_smallest_regular_numbers_at_or_above_n():
