@@ -553,10 +553,13 @@ def _root(value, order):
     return math.sqrt(value) if order == 1 else np.cbrt(value)
 
 
-@lean
+@inlined
 def _flipping(x, x1, h, unk, opt):
     """True when a fast voltage unknown moved by more than opt[O_FLIP_VOLTS] in the step
-    just accepted (x1 -> x, size h) at more than opt[O_FLIP_SLEW] volts per second."""
+    just accepted (x1 -> x, size h) at more than opt[O_FLIP_SLEW] volts per second.
+
+    Inlined: asked after nearly every step, and as a call it passed three arrays
+    (interleaved A/B: the oscillator 2.3 to 2.7 % faster inlined, the mixer 1.5 to 2.5 %)."""
     for i in range(1, x.shape[0]):
         if unk[i, U_SLOW] == 0.0 and unk[i, U_VOLT] > 0.0:
             dv = abs(x[i] - x1[i])
