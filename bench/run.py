@@ -61,8 +61,11 @@ def pitch(trace, net, t0, t1):
 
 
 #: Each real-time factor is the best of this many runs (the machine's other load only
-#: ever slows a run down).
-RUNS = 3
+#: ever slows a run down), printed with their median. Five rather than three: on this
+#: 2-core machine a run of 0.5 s is often slowed by a third by a blip of other load that
+#: a few seconds later is gone (three runs of the oscillator gave 18.4x in a bench whose
+#: machine-speed lines were at their fastest, while its draft quality ran at 24.9x).
+RUNS = 5
 #: Whole renders are short and their wall time varies more from run to run (start-up,
 #: threads): best and median of this many.
 RENDER_RUNS = 5
@@ -113,11 +116,12 @@ def main() -> None:
         for quality, rtol in (("default", StepOptions.rtol), ("draft", 1e-3)):
             opts = StepOptions(rtol=rtol, atol_volts=rtol / 10)
             simulate(circuit, 0.01, [net], opts)  # warm-up
-            wall = math.inf
+            walls = []
             for _ in range(RUNS):
                 t = time.perf_counter()
                 trace = simulate(circuit, AUDIO_SECONDS, [net], opts)
-                wall = min(wall, time.perf_counter() - t)
+                walls.append(time.perf_counter() - t)
+            wall, typical = min(walls), float(np.median(walls))
             short = simulate(circuit, REFERENCE_TO, [net], opts)
             ours = pitch(short, net, REFERENCE_FROM, REFERENCE_TO)
             if quality == "default":
@@ -128,7 +132,8 @@ def main() -> None:
             cents = 1200 * math.log2(ours / theirs)
             c = trace.counters
             print(f"{name:11s} {quality:8s} real-time x{AUDIO_SECONDS / wall:6.2f}  "
-                  f"(best of {RUNS}: {wall:.2f} s for {AUDIO_SECONDS:g} s)  pitch {ours:.4f} Hz, "
+                  f"(best of {RUNS}: {wall:.2f} s for {AUDIO_SECONDS:g} s; median x"
+                  f"{AUDIO_SECONDS / typical:.2f})  pitch {ours:.4f} Hz, "
                   f"{cents:+.3f} cent vs Radau  | steps {c['steps']}, rejected "
                   f"{c['rejected_error'] + c['rejected_newton']}, Newton iterations "
                   f"{c['newton_iterations']}")
