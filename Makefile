@@ -14,9 +14,10 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 # Our sources' bytecode, written here because Python does not write it where
-# PYTHONDONTWRITEBYTECODE is set (as on this machine and its CI) and an editable install leaves
-# it to the first run: without it every start compiles sim/ and blocks/ again (0.06 s
-# of a render's 0.33 s of imports, measured). Only changed sources are compiled again.
+# PYTHONDONTWRITEBYTECODE is set (as on this machine and its CI), and an editable
+# install leaves it to the first run: without it every start compiles sim/ and blocks/
+# again (0.06 s of a render's 0.33 s of imports, measured). Only changed sources are
+# compiled again.
 bytecode: $(STAMP)
 	$(BIN)/python -m compileall -q sim blocks
 

@@ -123,7 +123,7 @@ def _digest(source: str) -> str:
 
 
 #: numba modules imported with a probe answered "not there": (numba's module, the module
-#: it probes for, why). The first load or compile of any compiled function imports both
+#: it probes for). The first load or compile of any compiled function imports both
 #: numba modules (numba's library of implementations and its typing of cffi objects).
 _NUMBA_PROBES = (
     # numba's library of implementations looks for BLAS by importing scipy.linalg, only
@@ -131,13 +131,13 @@ _NUMBA_PROBES = (
     # with what it pulls in took 0.25 s of the 0.45 s before a render's first step. No
     # compiled function here uses those two; np.dot and np.linalg, if one ever does,
     # import BLAS themselves when they are compiled.
-    ("numba.np.arraymath", "scipy.linalg.cython_blas", "BLAS"),
+    ("numba.np.arraymath", "scipy.linalg.cython_blas"),
     # numba's typing of cffi functions builds a cffi parser (cffi.FFI(), which imports
     # pycparser and builds its tables): 0.05 s of the 0.15 to 0.19 s numba takes to set
     # up its first load (measured). No compiled function here calls through cffi; numba
     # then types as where cffi is not installed. soundfile, the one user of cffi here,
     # loads its compiled module through _cffi_backend and needs no parser.
-    ("numba.core.typing.cffi_utils", "cffi", "cffi"),
+    ("numba.core.typing.cffi_utils", "cffi"),
 )
 
 
@@ -149,7 +149,7 @@ def _start_numba() -> None:
     after it: a later ``import scipy.linalg`` or ``import cffi`` works as usual
     (tests/test_stepper.py checks both). A probe already imported is left alone.
     """
-    for module, probe, _ in _NUMBA_PROBES:
+    for module, probe in _NUMBA_PROBES:
         if module in sys.modules or probe in sys.modules:
             continue
         sys.modules[probe] = None
