@@ -10,9 +10,9 @@ Checklist for a new kind (see DEVELOPERS.md for a worked example):
    e.g. ``(("between", 2),)`` or ``(("anode", 1), ("cathode", 1))``.
 2. ``params``: one :class:`Param` per number or choice, each with its unit, default
    and the source of that default.
-3. ``stamp``: a function compiled by :data:`stamp_jit` (numba, *not* ``cache=True``: the generated
-   kernel module that calls it is cached as a whole, keyed on this file's contents;
-   a block-level cache would not notice edits to the helpers it calls) with the fixed signature
+3. ``stamp``: a function compiled by :data:`stamp_jit` (numba, *not* ``cache=True``: the
+   generated kernel module that calls it is cached as a whole, keyed on this file's
+   contents; a block-level cache would not notice edits to the helpers it calls) with the fixed signature
    ``stamp(x, t, P, N, D, f, G)`` that *adds* the currents flowing out of each node
    into the part to ``f`` and their partial derivatives to ``G``.
 

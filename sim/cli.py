@@ -505,12 +505,12 @@ UNCOLLECTED_COMMANDS = ("render", "check", "sheet")
 def main(argv: list[str] | None = None) -> int:
     """Run one command; ``argv`` defaults to the process's arguments.
 
-    Called as the program (``argv`` None: ``sim.program.main``), it also tunes the process for
-    one short command: the GIL switch interval (SWITCH_INTERVAL_SECONDS), the garbage
-    collector off for the commands of UNCOLLECTED_COMMANDS, and told that what exists at
-    the start (the imported modules) and at the end lives as long as the process: no
-    collection walks the modules again, and exiting does not walk everything a render
-    built (about 0.4 s after a render).
+    Called as the program (``argv`` None: ``sim.program.main``), it also tunes the
+    process for one short command: the GIL switch interval (SWITCH_INTERVAL_SECONDS),
+    the garbage collector off for the commands of UNCOLLECTED_COMMANDS, and told that
+    what exists at the start (the imported modules) and at the end lives as long as the
+    process: no collection walks the modules again, and exiting does not walk everything
+    a render built (about 0.4 s after a render).
     """
     as_program = argv is None
     argv = sys.argv[1:] if argv is None else argv

@@ -1105,7 +1105,9 @@ def _after_simulation(pool, patch, as_given, automation, circuit, trace, record,
         wav_file_job = pool.submit(_write_wav, base.with_suffix(".wav"), wav_job, opts.rate_hz)
         warm_job.result()  # the plots imported
         spectrum_job = pool.submit(_spectrum_plot, base, patch, opts, listen_report, wav_job)
-        # this thread would only wait for the gates and the WAV path: it draws meanwhile
+        # this thread would only wait for the gates and the WAV path: it draws meanwhile,
+        # beside the spectrum and with no lock (each figure, a sim.canvas.Sheet, has its
+        # own image and font objects, and Pillow's FreeType calls hold the GIL)
         png = _waveform_plot(base, patch, opts, times, values, listen_fine, listen_report,
                              supply, title)
 
@@ -1151,11 +1153,6 @@ def _write_wav(path: Path, wav_job, rate_hz: int) -> Path:
     """Write the samples of ``wav_job`` (a :func:`wav_path` result) to ``path``."""
     audio.write_wav(path, wav_job.result()[1], rate_hz)
     return path
-
-
-# A render draws its waveform in its own thread and its spectrum in a pool thread, at
-# the same time and with no lock: each figure (sim.canvas.Sheet) has its own image and
-# its own font objects, and Pillow's FreeType calls run holding the GIL.
 
 
 def _waveform_plot(base: Path, patch, opts: RenderOptions, times, values, listen_fine,

@@ -134,9 +134,9 @@ def test_an_existing_render_is_replaced_whole_and_no_temporary_file_is_left(tmp_
 
 def test_render_starts_without_the_libraries_only_other_commands_and_stages_need():
     # Measured start-up cost (python -X importtime): scipy.signal 0.9 s, scipy.optimize
-    # 0.25 s, Pillow (the plots' drawing) 0.02 to 0.03 s. A render imports Pillow and
-    # scipy.fft in a thread while it simulates; parsing its command line must not import
-    # them first.
+    # 0.25 s, Pillow (the plots' drawing) 0.02 to 0.03 s. A render imports Pillow in a
+    # thread while it simulates and needs no scipy.fft (numpy's FFT serves); parsing its
+    # command line must import none of them.
     code = ("import sys; from sim import cli; cli._parser(cli._command_of(['render', 'x.yaml']))"
             ".parse_args(['render', 'x.yaml']); print(sorted(m for m in ('PIL', "
             "'scipy.signal', 'scipy.optimize', 'scipy.fft') if m in sys.modules))")
